@@ -1,0 +1,26 @@
+"""splitlift: learn split directions for random forests.
+
+Estimate the relevant subspace of a multi-index model, build a full-rank
+lift matrix around it, and feed the lifted features to any forest.
+"""
+
+from .estimators import HessianDirections, SlicedAverageVariance, SlicedInverse
+from .geometry import leakage, orthonormal_complement, principal_angles, restricted_singular_value
+from .lift import LiftMatrix
+from .moments import CollinearityWarning
+from .persistence import LiftFileError
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "CollinearityWarning",
+    "HessianDirections",
+    "LiftFileError",
+    "LiftMatrix",
+    "SlicedAverageVariance",
+    "SlicedInverse",
+    "leakage",
+    "orthonormal_complement",
+    "principal_angles",
+    "restricted_singular_value",
+]

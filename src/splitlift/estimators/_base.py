@@ -1,0 +1,149 @@
+"""Fitted interface shared by every subspace estimator."""
+
+from __future__ import annotations
+
+from numbers import Integral, Real
+
+import numpy as np
+from sklearn.base import BaseEstimator, ClassNamePrefixFeaturesOutMixin, TransformerMixin
+from sklearn.utils._param_validation import Interval, StrOptions
+from sklearn.utils.validation import check_is_fitted, validate_data
+
+from .._validation import check_dim
+from ..moments import DEFAULT_RANK_TOLERANCE, Whitening, check_slice_sizes, slice_response
+
+
+class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstimator):
+    """Base class: estimate a relevant subspace from ``(X, y)``.
+
+    Subclasses implement :meth:`_eigen_decomposition`, which returns the
+    eigenvalues (length d, in the subclass's order) and the matching input
+    directions as columns. This class validates the data, keeps the leading
+    ``dim`` directions and orthonormalises them.
+
+    Attributes
+    ----------
+    basis_ : ndarray of shape (n_features_in_, dim_)
+        Orthonormal basis of the estimated subspace, input coordinates.
+    directions_ : ndarray of shape (n_features_in_, n_features_in_)
+        The method's published, un-orthonormalised directions as columns,
+        ordered like ``eigenvalues_``; a zero column stands for a direction
+        dropped by the collinearity tolerance.
+    eigenvalues_ : ndarray of shape (n_features_in_,)
+    dim_ : int
+    n_features_in_ : int
+    feature_names_in_ : ndarray of str
+        Present when ``X`` had string column names.
+    """
+
+    _parameter_constraints: dict = {"dim": [Interval(Integral, 1, None, closed="left")]}
+
+    #: Whether ``y`` may be class labels of any dtype.
+    _accepts_labels = True
+
+    def fit(self, X, y):
+        """Estimate the subspace.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_samples, n_features)
+        y : array-like of shape (n_samples,)
+
+        Returns
+        -------
+        self
+        """
+        self._validate_params()
+        X, y = validate_data(self, X, y, dtype=float, y_numeric=not self._accepts_labels)
+        if y.dtype.kind in "fc" and not np.all(np.isfinite(y)):
+            raise ValueError("y contains NaN or infinite values; drop or impute those rows.")
+        dim = check_dim(self.dim, X.shape[1])
+        eigenvalues, directions = self._eigen_decomposition(X, y)
+        usable = int(np.sum(np.linalg.norm(directions, axis=0) > 0))
+        if dim > usable:
+            raise ValueError(
+                f"dim={dim} exceeds the {usable} directions left after dropping constant or "
+                f"collinear columns; choose dim <= {usable} or remove redundant columns."
+            )
+        self.eigenvalues_ = eigenvalues
+        self.directions_ = directions
+        self.dim_ = dim
+        self.basis_ = np.linalg.qr(directions[:, :dim])[0]
+        return self
+
+    def transform(self, X) -> np.ndarray:
+        """Project onto the estimated subspace, ``X @ basis_``.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_samples, n_features_in_)
+
+        Returns
+        -------
+        ndarray of shape (n_samples, dim_)
+        """
+        check_is_fitted(self, "basis_")
+        X = validate_data(self, X, dtype=float, reset=False)
+        return X @ self.basis_
+
+    @property
+    def _n_features_out(self) -> int:
+        return self.dim_
+
+    def _eigen_decomposition(self, X, y):  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        tags.target_tags.required = True
+        return tags
+
+
+class MomentEstimator(SubspaceEstimator):
+    """Base of the moment methods: whiten, build a symmetric method matrix, eigen-decompose.
+
+    Subclasses implement :meth:`_method_matrix` in whitened coordinates and
+    may override :meth:`_order` (descending by default).
+    """
+
+    _parameter_constraints: dict = {
+        **SubspaceEstimator._parameter_constraints,
+        "rank_tolerance": [Interval(Real, 0, 1, closed="neither")],
+    }
+
+    def _eigen_decomposition(self, X, y):
+        self.whitening_ = Whitening.fit(X, self.rank_tolerance)
+        matrix = self._method_matrix(X, y, self.whitening_)
+        self.method_matrix_ = matrix
+        values, vectors = np.linalg.eigh((matrix + matrix.T) / 2)
+        order = self._order(values)
+        d, rank = X.shape[1], self.whitening_.rank
+        eigenvalues = np.zeros(d)
+        eigenvalues[:rank] = values[order]
+        directions = np.zeros((d, d))
+        directions[:, :rank] = self.whitening_.to_input(vectors[:, order])
+        return eigenvalues, directions
+
+    @staticmethod
+    def _order(values: np.ndarray) -> np.ndarray:
+        return np.argsort(-values, kind="stable")
+
+    def _method_matrix(self, X, y, whitening):  # pragma: no cover - abstract
+        raise NotImplementedError
+
+
+class SlicedMomentEstimator(MomentEstimator):
+    """Moment method whose matrix is built from slices of the response."""
+
+    _parameter_constraints: dict = {
+        **MomentEstimator._parameter_constraints,
+        "n_slices": [Interval(Integral, 2, None, closed="left")],
+        "slicing": [StrOptions({"auto", "count", "value"})],
+    }
+
+    def _slices(self, y):
+        slices = slice_response(y, self.n_slices, self.slicing)
+        # equal-count slicing is judged by the slices asked for, value slicing by those found
+        check_slice_sizes(y.shape[0], self.n_slices if slices.kind == "count" else slices.n_slices)
+        self.n_slices_ = slices.n_slices
+        return slices

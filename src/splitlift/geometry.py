@@ -1,0 +1,140 @@
+"""Geometry of subspaces and lift matrices: angles, leakage, conditioning.
+
+Small pure functions with their input checks at the top and no state.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ._validation import check_basis, check_finite_matrix
+
+
+def orthonormal_complement(basis: np.ndarray) -> np.ndarray:
+    """Orthonormal basis (d, d - k) of the orthogonal complement of ``span(basis)``.
+
+    Parameters
+    ----------
+    basis : array-like of shape (d, k)
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> orthonormal_complement(np.array([[1.0], [0.0]])).round(6).ravel().tolist()
+    [0.0, 1.0]
+    """
+    orthonormal = check_basis(basis)
+    d, k = orthonormal.shape
+    full, _, _ = np.linalg.svd(orthonormal, full_matrices=True)
+    return full[:, k:d]
+
+
+def principal_angles(U, V) -> np.ndarray:
+    """Principal angles between ``span(U)`` and ``span(V)``, in radians, largest first.
+
+    Parameters
+    ----------
+    U : array-like of shape (d, k) or (d,)
+    V : array-like of shape (d, l) or (d,)
+        Any spanning sets; columns are orthonormalised first.
+
+    Returns
+    -------
+    ndarray of shape (min(k, l),)
+        Angles in ``[0, pi/2]``, as :func:`scipy.linalg.subspace_angles`.
+
+    Notes
+    -----
+    With orthonormal bases ``Q_U, Q_V`` the cosines are the singular values of
+    ``Q_U^T Q_V``. Small angles are recovered from the sines, the singular
+    values of ``Q_V - Q_U Q_U^T Q_V``, which keeps full accuracy near zero
+    (Björck & Golub 1973; Knyazev & Argentati 2002).
+
+    References
+    ----------
+    Björck, Å. and Golub, G. H. (1973). Numerical methods for computing angles
+    between linear subspaces. Mathematics of Computation 27, 579-594.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> angles = principal_angles(np.eye(3)[:, :2], np.array([[1.0], [0.0], [1.0]]))
+    >>> float(np.degrees(angles[0])).__round__(6)
+    45.0
+    """
+    left = check_basis(U, "U")
+    right = check_basis(V, "V", n_features=left.shape[0])
+    if left.shape[1] < right.shape[1]:
+        left, right = right, left
+    cross = left.T @ right
+    cosines = np.clip(np.linalg.svd(cross, compute_uv=False), 0.0, 1.0)
+    residual = right - left @ cross
+    sines = np.clip(np.linalg.svd(residual, compute_uv=False), 0.0, 1.0)
+    # cosines come largest first and sines largest first: align both to
+    # ascending angles, take each angle from whichever is better conditioned
+    ascending = np.where(cosines**2 > 0.5, np.arcsin(sines[::-1]), np.arccos(cosines))
+    return ascending[::-1]
+
+
+def normalise_rows(matrix) -> np.ndarray:
+    """Scale a direction matrix so that its row norms sum to one."""
+    array = check_finite_matrix(matrix, "matrix")
+    total = np.linalg.norm(array, axis=1).sum()
+    if total == 0:
+        raise ValueError("the direction matrix is all zeros; pass at least one non-zero row.")
+    return array / total
+
+
+def leakage(matrix, reference_basis) -> float:
+    """Weight of a direction matrix outside a subspace, ``ε(A, S) = Σ_i ‖P_{S⊥} a_i‖``.
+
+    Parameters
+    ----------
+    matrix : array-like of shape (m, d)
+        Rows are directions. An un-normalised matrix is first scaled so that
+        its row norms sum to one (the lift normalisation), which makes the
+        leakage scale-free and puts it in ``[0, 1]``.
+    reference_basis : array-like of shape (d, s)
+        Columns spanning the subspace ``S``.
+
+    Returns
+    -------
+    float
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> A = np.array([[0.9, 0.0], [0.0, 0.1]])
+    >>> round(leakage(A, np.array([1.0, 0.0])), 12)
+    0.1
+    """
+    rows = normalise_rows(matrix)
+    basis = check_basis(reference_basis, "reference_basis", n_features=rows.shape[1])
+    outside = rows - (rows @ basis) @ basis.T
+    return float(np.linalg.norm(outside, axis=1).sum())
+
+
+def restricted_singular_value(matrix, reference_basis) -> float:
+    """Smallest singular value ``σ_min(A U_S)`` of a normalised lift on a subspace.
+
+    Parameters
+    ----------
+    matrix : array-like of shape (m, d)
+        Scaled first so that its row norms sum to one, as in :func:`leakage`.
+    reference_basis : array-like of shape (d, s)
+        Columns spanning ``S``; orthonormalised to ``U_S``.
+
+    Returns
+    -------
+    float
+        Zero when some direction of ``S`` is never cut by the lift.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> round(restricted_singular_value(np.eye(2), np.array([1.0, 0.0])), 12)
+    0.5
+    """
+    rows = normalise_rows(matrix)
+    basis = check_basis(reference_basis, "reference_basis", n_features=rows.shape[1])
+    return float(np.linalg.svd(rows @ basis, compute_uv=False)[-1])

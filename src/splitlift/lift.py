@@ -1,0 +1,330 @@
+"""The lift matrix: split directions with weights, built from a subspace."""
+
+from __future__ import annotations
+
+from numbers import Integral
+
+import numpy as np
+from scipy.stats import norm, qmc
+from sklearn.utils import check_random_state
+
+from . import geometry
+from ._validation import check_basis, check_finite_matrix, check_fraction
+from .persistence import read_lift_file, write_lift_file
+
+# Relative singular-value tolerance for the full-rank requirement.
+_RANK_TOLERANCE = 1e-10
+
+
+class LiftMatrix:
+    """A full-rank matrix of split directions, ``z = A x``.
+
+    Rows ``a_i`` are scaled so that ``Σ_i ‖a_i‖ = 1``; they define the
+    directional distribution with atoms ``±a_i/‖a_i‖`` and weights ``‖a_i‖``.
+    ``rank(A) = d`` is required, since otherwise cells of a partition by
+    these directions are unbounded along the null space.
+
+    Parameters
+    ----------
+    matrix : array-like of shape (m, d)
+        Directions as rows; rescaled to unit total row norm. Zero rows are
+        refused.
+    feature_names : sequence of str, optional
+        Names of the d input columns the lift acts on.
+    subspace_basis : array-like of shape (d, s), optional
+        The subspace the lift was built around, kept for diagnostics.
+    metadata : dict, optional
+        JSON-serialisable facts saved with the lift (estimator, settings).
+
+    Attributes
+    ----------
+    matrix : ndarray of shape (m, d)
+    weights : ndarray of shape (m,)
+        Row norms; they sum to one.
+    directions : ndarray of shape (m, d)
+        Unit rows ``a_i / ‖a_i‖``.
+
+    See Also
+    --------
+    LiftMatrix.from_subspace : build a lift around an estimated subspace.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> lift = LiftMatrix.from_subspace(np.array([[1.0], [1.0], [0.0]]), complement_weight=0.1)
+    >>> lift.matrix.shape, round(lift.leakage(np.array([1.0, 1.0, 0.0])), 12)
+    ((3, 3), 0.1)
+    """
+
+    def __init__(self, matrix, *, feature_names=None, subspace_basis=None, metadata=None):
+        rows = check_finite_matrix(matrix, "lift matrix")
+        norms = np.linalg.norm(rows, axis=1)
+        if np.any(norms == 0):
+            raise ValueError(
+                f"lift matrix row {int(np.argmin(norms))} is zero; every row must be a direction."
+            )
+        self._matrix = rows / norms.sum()
+        self._matrix.setflags(write=False)
+        rank = self.rank()
+        if rank < self.n_features:
+            raise ValueError(
+                f"lift matrix has rank {rank} < {self.n_features} features, so partition cells "
+                "would be unbounded; add directions spanning the rest of the space "
+                "(for instance LiftMatrix.from_subspace with complement_weight > 0)."
+            )
+        if feature_names is not None:
+            feature_names = [str(name) for name in feature_names]
+            if len(feature_names) != self.n_features:
+                raise ValueError(
+                    f"{len(feature_names)} feature names given for {self.n_features} columns."
+                )
+        self.feature_names = feature_names
+        self.subspace_basis = (
+            None if subspace_basis is None else check_basis(subspace_basis, "subspace_basis",
+                                                            n_features=self.n_features)
+        )
+        self.metadata = dict(metadata or {})
+
+    # ----------------------------------------------------------------- views
+    @property
+    def matrix(self) -> np.ndarray:
+        return self._matrix
+
+    @property
+    def n_features(self) -> int:
+        return self._matrix.shape[1]
+
+    @property
+    def n_directions(self) -> int:
+        return self._matrix.shape[0]
+
+    @property
+    def weights(self) -> np.ndarray:
+        return np.linalg.norm(self._matrix, axis=1)
+
+    @property
+    def directions(self) -> np.ndarray:
+        return self._matrix / self.weights[:, None]
+
+    def rank(self) -> int:
+        """Numerical rank of the matrix (relative singular-value tolerance 1e-10)."""
+        singular = np.linalg.svd(self._matrix, compute_uv=False)
+        return int(np.sum(singular > _RANK_TOLERANCE * singular[0]))
+
+    def leakage(self, reference_basis) -> float:
+        """Leakage ``Σ_i ‖P_{S⊥} a_i‖`` with respect to ``span(reference_basis)``."""
+        return geometry.leakage(self._matrix, reference_basis)
+
+    def restricted_singular_value(self, reference_basis) -> float:
+        """``σ_min(A U_S)`` for an orthonormal basis ``U_S`` of the reference subspace."""
+        return geometry.restricted_singular_value(self._matrix, reference_basis)
+
+    def repeated(self, n_columns: int | None = None) -> np.ndarray:
+        """Unit directions repeated in proportion to their weights.
+
+        Forests that draw candidate features uniformly at random per split
+        ignore column scale but not column multiplicity: a direction present
+        k times is drawn k times as often. Counts follow the largest-remainder
+        rule with at least one copy of every direction, so the result keeps
+        rank d.
+
+        Parameters
+        ----------
+        n_columns : int, optional
+            Total number of rows of the result; default ``4 * n_directions``.
+
+        Returns
+        -------
+        ndarray of shape (n_columns, d)
+        """
+        total = 4 * self.n_directions if n_columns is None else n_columns
+        if isinstance(total, bool) or not isinstance(total, Integral) or total < self.n_directions:
+            raise ValueError(
+                f"n_columns must be an integer >= the number of directions "
+                f"({self.n_directions}), got {n_columns!r}."
+            )
+        spare = total - self.n_directions
+        share = self.weights * spare
+        counts = np.floor(share).astype(int)
+        remainder_order = np.argsort(-(share - counts), kind="stable")
+        counts[remainder_order[: spare - counts.sum()]] += 1
+        return np.repeat(self.directions, counts + 1, axis=0)
+
+    # ---------------------------------------------------------- construction
+    @classmethod
+    def axis(cls, n_features: int, feature_names=None) -> LiftMatrix:
+        """The axis-aligned lift ``I_d / d`` (every coordinate equally weighted)."""
+        return cls(np.eye(n_features), feature_names=feature_names)
+
+    @classmethod
+    def from_subspace(
+        cls,
+        basis,
+        complement_weight: float = 0.05,
+        n_in_subspace: int | None = None,
+        eigenvalues=None,
+        weight_power: float = 0.0,
+        random_state=None,
+        feature_names=None,
+        metadata=None,
+    ) -> LiftMatrix:
+        """Build a lift with most weight inside ``span(basis)``.
+
+        Parameters
+        ----------
+        basis : array-like of shape (d, s)
+            Columns spanning the subspace S (orthonormalised here).
+        complement_weight : float in (0, 1), default 0.05
+            Total weight shared equally by an orthonormal basis of the
+            orthogonal complement; it equals the lift's leakage with respect
+            to S. Ignored when ``s = d`` (there is no complement).
+        n_in_subspace : int, optional
+            Number of directions inside S. Default: 1 when ``s = 1``, else
+            ``4 s``. Must be at least s.
+        eigenvalues : array-like, optional
+            Eigenvalues paired with the basis columns (first s used, by
+            absolute value). With ``weight_power = p`` a unit direction
+            ``U c`` inside S gets weight ``∝ Σ_k c_k^2 |λ_k|^p``.
+        weight_power : float, default 0
+            0 gives equal weights inside S.
+        random_state : int, RandomState or None
+            None gives the deterministic spread; otherwise the spread is
+            turned by a random rotation within S (different lifts for an
+            ensemble).
+        feature_names, metadata
+            Passed to the constructor.
+
+        Notes
+        -----
+        Inside S the directions are the basis vector (s = 1), equally spaced
+        lines on the half circle (s = 2), or for s >= 3 a deterministic
+        Halton start spread by repulsion of lines on the sphere (pairs
+        ``±u`` count as one line), so splits can be oblique within S.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> lift = LiftMatrix.from_subspace(np.eye(4)[:, :2], complement_weight=0.2)
+        >>> lift.n_directions, round(float(lift.weights.sum()), 12)
+        (10, 1.0)
+        """
+        orthonormal = check_basis(basis, "basis")
+        complement_weight = check_fraction(complement_weight, "complement_weight")
+        d, s = orthonormal.shape
+        count = (1 if s == 1 else 4 * s) if n_in_subspace is None else n_in_subspace
+        if isinstance(count, bool) or not isinstance(count, Integral) or count < s:
+            raise ValueError(
+                f"n_in_subspace must be an integer >= the subspace dimension {s}, "
+                f"got {n_in_subspace!r}."
+            )
+        coefficients = spread_directions(s, int(count))
+        if random_state is not None and s > 1:
+            coefficients = coefficients @ _random_rotation(s, random_state)
+        weights = _eigenvalue_weights(coefficients, eigenvalues, weight_power, s)
+        inside_share = 1.0 if s == d else 1.0 - complement_weight
+        inside = (weights / weights.sum() * inside_share)[:, None] * (coefficients @ orthonormal.T)
+        rows = [inside]
+        if s < d:
+            complement = geometry.orthonormal_complement(orthonormal)
+            rows.append(complement.T * (complement_weight / (d - s)))
+        info = {"complement_weight": complement_weight if s < d else 0.0, "subspace_dim": s}
+        return cls(
+            np.vstack(rows),
+            feature_names=feature_names,
+            subspace_basis=orthonormal,
+            metadata={**info, **(metadata or {})},
+        )
+
+    # ------------------------------------------------------------ persistence
+    def save(self, path) -> None:
+        """Write the lift to ``path`` (.npz with JSON metadata), atomically."""
+        arrays = {"matrix": self._matrix}
+        if self.subspace_basis is not None:
+            arrays["subspace_basis"] = self.subspace_basis
+        metadata = {
+            "n_features": self.n_features,
+            "n_directions": self.n_directions,
+            "feature_names": self.feature_names,
+            "info": self.metadata,
+        }
+        write_lift_file(path, arrays, metadata)
+
+    @classmethod
+    def load(cls, path) -> LiftMatrix:
+        """Read a lift written by :meth:`save`; every part is validated."""
+        from .persistence import LiftFileError
+
+        arrays, metadata = read_lift_file(path)
+        matrix = arrays["matrix"]
+        expected = (metadata.get("n_directions"), metadata.get("n_features"))
+        if matrix.ndim != 2 or matrix.shape != expected:
+            raise LiftFileError(
+                f"{path}: matrix shape {matrix.shape} disagrees with the metadata {expected}; "
+                "the file is corrupt. Save the lift again."
+            )
+        try:
+            return cls(
+                matrix,
+                feature_names=metadata.get("feature_names"),
+                subspace_basis=arrays.get("subspace_basis"),
+                metadata=metadata.get("info"),
+            )
+        except ValueError as error:
+            raise LiftFileError(f"{path}: invalid lift ({error})") from None
+
+    def __repr__(self) -> str:
+        return f"LiftMatrix(n_directions={self.n_directions}, n_features={self.n_features})"
+
+
+def spread_directions(dim: int, count: int) -> np.ndarray:
+    """Deterministic, near-uniform unit directions (lines) in ``R^dim``.
+
+    Returns an array of shape (count, dim) of rank ``dim`` (for ``count >= dim``).
+    """
+    if dim == 1:
+        return np.ones((count, 1))
+    if dim == 2:
+        angles = np.pi * np.arange(count) / count
+        return np.column_stack([np.cos(angles), np.sin(angles)])
+    start = qmc.Halton(d=dim, scramble=False).random(count + 1)[1:]
+    points = norm.ppf(np.clip(start, 1e-6, 1 - 1e-6))
+    points[:dim] = np.eye(dim)  # the basis itself guarantees full rank
+    points /= np.linalg.norm(points, axis=1, keepdims=True)
+    return _repel_lines(points)
+
+
+def _repel_lines(points: np.ndarray, n_steps: int = 200, power: int = 8) -> np.ndarray:
+    # Gradient steps on Σ_{i≠j} (u_i·u_j)^power: a high even power pushes the
+    # most coherent pairs of lines apart and treats ±u alike.
+    for _ in range(n_steps):
+        gram = points @ points.T
+        np.fill_diagonal(gram, 0.0)
+        force = (gram ** (power - 1)) @ points
+        force -= np.sum(force * points, axis=1, keepdims=True) * points
+        points = points - 0.1 * force / max(1.0, np.abs(force).max())
+        points /= np.linalg.norm(points, axis=1, keepdims=True)
+    return points
+
+
+def _random_rotation(dim: int, random_state) -> np.ndarray:
+    generator = check_random_state(random_state)
+    q, r = np.linalg.qr(generator.standard_normal((dim, dim)))
+    return q * np.sign(np.diag(r))
+
+
+def _eigenvalue_weights(coefficients, eigenvalues, weight_power, dim) -> np.ndarray:
+    if eigenvalues is None or weight_power == 0:
+        return np.ones(coefficients.shape[0])
+    values = np.abs(np.asarray(eigenvalues, dtype=float).ravel())
+    if values.size < dim or not np.all(np.isfinite(values[:dim])):
+        raise ValueError(
+            f"eigenvalues must hold at least {dim} finite values (one per basis column)."
+        )
+    scaled = values[:dim] ** float(weight_power)
+    weights = (coefficients**2) @ scaled
+    if not np.all(weights > 0):
+        raise ValueError(
+            "eigenvalue weights vanish for some direction (a zero eigenvalue with "
+            "weight_power > 0); use weight_power=0 or a smaller subspace."
+        )
+    return weights

@@ -1,0 +1,282 @@
+"""Shared numerics of the moment-based estimators: whitening and slicing.
+
+Every moment method (SIR, SAVE, pHd) reads the data through this module, so
+centring, the covariance, its whitening and the slice statistics are
+computed once and in one way. The costly steps are single passes over ``X``
+in row chunks (no Python loop over rows); memory beyond ``X`` itself stays
+at one chunk plus a few ``(n,)`` vectors.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Iterator
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import sparse
+
+#: Relative eigenvalue tolerance below which a covariance direction is treated
+#: as degenerate (constant or collinear columns). With 1e-10 the whitened
+#: coordinates keep about six significant digits in float64.
+DEFAULT_RANK_TOLERANCE = 1e-10
+
+# Rows per chunk are chosen so a centred chunk holds about this many floats.
+_CHUNK_ELEMENTS = 1 << 20
+
+
+class CollinearityWarning(UserWarning):
+    """The input covariance is singular or nearly so; estimation used its well-conditioned part."""
+
+
+def _row_chunks(n_rows: int, n_columns: int) -> Iterator[slice]:
+    step = max(1, _CHUNK_ELEMENTS // max(n_columns, 1))
+    for start in range(0, n_rows, step):
+        yield slice(start, min(start + step, n_rows))
+
+
+def centred_cross_product(X: np.ndarray, mean: np.ndarray, weights=None) -> np.ndarray:
+    """Return ``sum_i w_i (x_i - mean)(x_i - mean)^T`` in one chunked pass.
+
+    Parameters
+    ----------
+    X : ndarray of shape (n, d)
+    mean : ndarray of shape (d,)
+    weights : ndarray of shape (n,), optional
+        Row weights ``w_i``; all ones when omitted.
+    """
+    d = X.shape[1]
+    total = np.zeros((d, d))
+    for rows in _row_chunks(X.shape[0], d):
+        centred = X[rows] - mean
+        weighted = centred if weights is None else centred * weights[rows, None]
+        total += weighted.T @ centred
+    return total
+
+
+@dataclass(frozen=True)
+class Whitening:
+    """Centring and whitening of the inputs, ``z = W (x - mean)``.
+
+    ``W`` has shape (r, d) with ``W Σ W^T = I_r``, where ``Σ`` is the
+    population covariance (divisor n, as in Li 1991) and ``r`` the number of
+    covariance eigenvalues above ``tolerance`` times the largest. When
+    ``r < d`` (constant or collinear columns) estimation happens in the
+    r-dimensional well-conditioned part; directions map back to input
+    coordinates with :meth:`to_input`.
+
+    Attributes
+    ----------
+    mean : ndarray of shape (d,)
+    covariance : ndarray of shape (d, d)
+    matrix : ndarray of shape (r, d)
+        The whitening matrix ``W`` (symmetric inverse root on the kept part).
+    rank : int
+    tolerance : float
+    """
+
+    mean: np.ndarray
+    covariance: np.ndarray
+    matrix: np.ndarray
+    rank: int
+    tolerance: float
+
+    @classmethod
+    def fit(cls, X: np.ndarray, tolerance: float = DEFAULT_RANK_TOLERANCE) -> Whitening:
+        """Estimate mean, covariance and whitening matrix of ``X``."""
+        mean = X.mean(axis=0)
+        covariance = centred_cross_product(X, mean) / X.shape[0]
+        return cls.from_moments(mean, covariance, tolerance)
+
+    @classmethod
+    def from_moments(cls, mean, covariance, tolerance: float = DEFAULT_RANK_TOLERANCE):
+        """Build the whitening from a known mean and covariance."""
+        values, vectors = np.linalg.eigh(covariance)
+        largest = values[-1]
+        if not largest > 0:
+            raise ValueError(
+                "every input column is constant, so there is no direction to estimate; "
+                "pass features that vary."
+            )
+        kept = values > tolerance * largest
+        rank = int(kept.sum())
+        if rank < covariance.shape[0]:
+            warnings.warn(
+                f"the input covariance has rank {rank} < {covariance.shape[0]} at relative "
+                f"tolerance {tolerance:g} (constant or collinear columns); the subspace is "
+                "estimated in the well-conditioned part. Drop redundant columns to silence this.",
+                CollinearityWarning,
+                stacklevel=3,
+            )
+        matrix = (vectors[:, kept] / np.sqrt(values[kept])).T
+        return cls(mean, covariance, matrix, rank, float(tolerance))
+
+    def transform(self, X: np.ndarray) -> np.ndarray:
+        """Whitened coordinates ``(X - mean) W^T`` of shape (n, r)."""
+        return (X - self.mean) @ self.matrix.T
+
+    def to_input(self, whitened_directions: np.ndarray) -> np.ndarray:
+        """Map directions ``η`` of whitened space to input directions ``W^T η``.
+
+        These are the published (un-orthonormalised) directions
+        ``β = Σ^{-1/2} η``: ``β^T x`` is the corresponding summary.
+        """
+        return self.matrix.T @ whitened_directions
+
+    def whiten_moment(self, moment: np.ndarray) -> np.ndarray:
+        """Express a (d, d) second moment of ``x - mean`` in whitened coordinates."""
+        return self.matrix @ moment @ self.matrix.T
+
+
+@dataclass(frozen=True)
+class Slices:
+    """A partition of the sample by the response.
+
+    Attributes
+    ----------
+    labels : ndarray of shape (n,)
+        Slice index of each row, in ``0 .. n_slices - 1``; slices are ordered
+        by response value (by sorted class value for a discrete response).
+    counts : ndarray of shape (n_slices,)
+    kind : {"count", "value"}
+        Equal-count slices of the sorted response, or one slice per value.
+    values : ndarray
+        For ``kind="value"``, the response value of each slice.
+    """
+
+    labels: np.ndarray
+    counts: np.ndarray
+    kind: str
+    values: np.ndarray | None = None
+
+    @property
+    def n_slices(self) -> int:
+        return int(self.counts.size)
+
+    @property
+    def proportions(self) -> np.ndarray:
+        return self.counts / self.counts.sum()
+
+    def indicator(self) -> sparse.csr_array:
+        """Sparse (n_slices, n) 0/1 matrix; ``indicator() @ X`` gives slice sums."""
+        n = self.labels.size
+        ones = np.ones(n)
+        return sparse.csr_array((ones, (self.labels, np.arange(n))), shape=(self.n_slices, n))
+
+    def sums(self, X: np.ndarray) -> np.ndarray:
+        """Column sums of ``X`` within each slice, shape (n_slices, d), in one pass."""
+        return np.asarray(self.indicator() @ X)
+
+    def means(self, X: np.ndarray) -> np.ndarray:
+        """Column means of ``X`` within each slice, shape (n_slices, d)."""
+        return self.sums(X) / self.counts[:, None]
+
+    def members(self) -> Iterator[np.ndarray]:
+        """Row indices of each slice in turn (one stable sort of the labels)."""
+        order = np.argsort(self.labels, kind="stable")
+        stops = np.cumsum(self.counts)
+        starts = stops - self.counts
+        for start, stop in zip(starts, stops, strict=True):
+            yield order[start:stop]
+
+
+def _is_discrete(y: np.ndarray) -> bool:
+    return y.dtype.kind not in "fiuc" or y.dtype.kind == "b"
+
+
+def slice_response(y, n_slices: int, slicing: str = "auto") -> Slices:
+    """Partition rows by the response.
+
+    Parameters
+    ----------
+    y : array-like of shape (n,)
+        Numeric response, or class labels of any dtype.
+    n_slices : int
+        Number of equal-count slices for a continuous response.
+    slicing : {"auto", "count", "value"}
+        ``"count"``: sort the response and split it as ``np.array_split``
+        would; tied responses are kept together in the later slice, so a
+        slice may grow or vanish only where the response has ties.
+        ``"value"``: one slice per distinct value. ``"auto"``: by value for
+        non-numeric or boolean labels and for integer responses with at
+        most ``n_slices`` distinct values, else by count.
+
+    Returns
+    -------
+    Slices
+    """
+    y = np.asarray(y)
+    if slicing not in ("auto", "count", "value"):
+        raise ValueError(f"slicing must be 'auto', 'count' or 'value', got {slicing!r}.")
+    discrete = _is_discrete(y)
+    if slicing == "count" and discrete:
+        raise ValueError(
+            "slicing='count' needs a numeric response; class labels are sliced by value "
+            "(use slicing='value' or 'auto')."
+        )
+    # Integer responses are often codes with few values; counting their
+    # distinct values costs a sort, so floats skip it (ties stay together).
+    by_value = slicing == "value" or discrete or (slicing == "auto" and y.dtype.kind in "iu")
+    if by_value:
+        values, inverse = np.unique(y, return_inverse=True)
+        _refuse_constant(values.size)
+        if slicing == "value" or discrete or values.size <= n_slices:
+            counts = np.bincount(inverse.ravel(), minlength=values.size)
+            return Slices(inverse.ravel(), counts, "value", values)
+    y = y.astype(float, copy=False)
+    _refuse_constant(2 if y.min() < y.max() else 1)
+    return _equal_count_slices(y, n_slices)
+
+
+def _refuse_constant(n_distinct: int) -> None:
+    if n_distinct < 2:
+        raise ValueError(
+            "the response y is constant, so no direction can explain it; "
+            "check that the right target column was passed."
+        )
+
+
+def _equal_count_slices(y: np.ndarray, n_slices: int) -> Slices:
+    n = y.size
+    sizes = np.full(n_slices, n // n_slices)
+    sizes[: n % n_slices] += 1
+    starts = np.cumsum(sizes)[:-1]
+    # The value at each slice start, from a partial sort (no full argsort).
+    boundaries = np.partition(y, starts)[starts]
+    labels = np.searchsorted(boundaries, y, side="right")
+    counts = np.bincount(labels, minlength=n_slices)
+    if np.any(counts == 0):  # ties swallowed a whole slice: renumber the rest
+        renumber = np.cumsum(counts > 0) - 1
+        labels = renumber[labels]
+        counts = counts[counts > 0]
+    return Slices(labels, counts, "count")
+
+
+def check_slice_sizes(n_samples: int, n_slices: int, minimum_per_slice: int = 2) -> None:
+    """Refuse a sample too small for the requested number of slices."""
+    if n_samples < minimum_per_slice * n_slices:
+        raise ValueError(
+            f"n_samples = {n_samples} is too few for {n_slices} slices (need at least "
+            f"{minimum_per_slice} rows per slice); lower n_slices or pass more data."
+        )
+
+
+def slice_covariances(X: np.ndarray, slices: Slices, mean: np.ndarray) -> np.ndarray:
+    """Unbiased (divisor ``n_h - 1``) covariance of ``X`` within each slice.
+
+    Returns an array of shape (n_slices, d, d). Rows are gathered slice by
+    slice, so the loop runs over slices, never over rows.
+    """
+    if np.any(slices.counts < 2):
+        small = int(np.argmin(slices.counts))
+        raise ValueError(
+            f"slice {small} holds a single row, so its within-slice covariance is undefined; "
+            "use fewer slices or merge rare response values."
+        )
+    d = X.shape[1]
+    covariances = np.empty((slices.n_slices, d, d))
+    for index, rows in enumerate(slices.members()):
+        block = X[rows] - mean
+        block -= block.mean(axis=0)
+        covariances[index] = block.T @ block / (rows.size - 1)
+    return covariances
