@@ -9,14 +9,18 @@ from .geometry import leakage, orthonormal_complement, principal_angles, restric
 from .lift import LiftMatrix
 from .moments import CollinearityWarning
 from .persistence import LiftFileError
+from .report import LiftReport
+from .transformer import DirectionLift
 
 __version__ = "0.1.0"
 
 __all__ = [
     "CollinearityWarning",
+    "DirectionLift",
     "HessianDirections",
     "LiftFileError",
     "LiftMatrix",
+    "LiftReport",
     "SlicedAverageVariance",
     "SlicedInverse",
     "leakage",

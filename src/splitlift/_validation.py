@@ -80,3 +80,12 @@ def check_dim(dim, n_features: int, name: str = "dim") -> int:
             f"choose {name} <= {n_features}."
         )
     return int(dim)
+
+
+def check_sample_count(n_samples: int, minimum: int = 2) -> None:
+    """Refuse data sets too small to estimate anything."""
+    if n_samples < minimum:
+        raise ValueError(
+            f"n_samples = {n_samples} is too few: at least {minimum} rows are needed; "
+            "pass more data."
+        )

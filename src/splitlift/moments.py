@@ -252,27 +252,29 @@ def _equal_count_slices(y: np.ndarray, n_slices: int) -> Slices:
     return Slices(labels, counts, "count")
 
 
-def check_slice_sizes(n_samples: int, n_slices: int, minimum_per_slice: int = 2) -> None:
-    """Refuse a sample too small for the requested number of slices."""
-    if n_samples < minimum_per_slice * n_slices:
+def check_slice_sizes(slices: Slices, n_slices_requested: int) -> None:
+    """Refuse slices with fewer than two rows (too little data or a rare value)."""
+    small = int(np.argmin(slices.counts))
+    if slices.counts[small] >= 2:
+        return
+    if slices.kind == "count":
         raise ValueError(
-            f"n_samples = {n_samples} is too few for {n_slices} slices (need at least "
-            f"{minimum_per_slice} rows per slice); lower n_slices or pass more data."
+            f"n_samples = {slices.labels.size} is too few for {n_slices_requested} slices "
+            "(need at least 2 rows per slice); lower n_slices or pass more data."
         )
+    raise ValueError(
+        f"response value {slices.values[small]!r} occurs in a single row, but every slice "
+        "needs at least 2 rows; merge rare values or drop those rows."
+    )
 
 
 def slice_covariances(X: np.ndarray, slices: Slices, mean: np.ndarray) -> np.ndarray:
     """Unbiased (divisor ``n_h - 1``) covariance of ``X`` within each slice.
 
     Returns an array of shape (n_slices, d, d). Rows are gathered slice by
-    slice, so the loop runs over slices, never over rows.
+    slice, so the loop runs over slices, never over rows. Every slice needs
+    two rows (see :func:`check_slice_sizes`).
     """
-    if np.any(slices.counts < 2):
-        small = int(np.argmin(slices.counts))
-        raise ValueError(
-            f"slice {small} holds a single row, so its within-slice covariance is undefined; "
-            "use fewer slices or merge rare response values."
-        )
     d = X.shape[1]
     covariances = np.empty((slices.n_slices, d, d))
     for index, rows in enumerate(slices.members()):

@@ -9,7 +9,7 @@ from sklearn.base import BaseEstimator, ClassNamePrefixFeaturesOutMixin, Transfo
 from sklearn.utils._param_validation import Interval, StrOptions
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-from .._validation import check_dim
+from .._validation import check_dim, check_sample_count
 from ..moments import DEFAULT_RANK_TOLERANCE, Whitening, check_slice_sizes, slice_response
 
 
@@ -57,6 +57,7 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         X, y = validate_data(self, X, y, dtype=float, y_numeric=not self._accepts_labels)
         if y.dtype.kind in "fc" and not np.all(np.isfinite(y)):
             raise ValueError("y contains NaN or infinite values; drop or impute those rows.")
+        check_sample_count(X.shape[0])
         dim = check_dim(self.dim, X.shape[1])
         eigenvalues, directions = self._eigen_decomposition(X, y)
         usable = int(np.sum(np.linalg.norm(directions, axis=0) > 0))
@@ -143,7 +144,6 @@ class SlicedMomentEstimator(MomentEstimator):
 
     def _slices(self, y):
         slices = slice_response(y, self.n_slices, self.slicing)
-        # equal-count slicing is judged by the slices asked for, value slicing by those found
-        check_slice_sizes(y.shape[0], self.n_slices if slices.kind == "count" else slices.n_slices)
+        check_slice_sizes(slices, self.n_slices)
         self.n_slices_ = slices.n_slices
         return slices

@@ -1,0 +1,237 @@
+"""DirectionLift: a scikit-learn transformer that puts ``x ↦ A x`` in front of a forest."""
+
+from __future__ import annotations
+
+from numbers import Integral, Real
+
+import numpy as np
+from sklearn.base import (
+    BaseEstimator,
+    ClassNamePrefixFeaturesOutMixin,
+    TransformerMixin,
+    clone,
+)
+from sklearn.utils._param_validation import HasMethods, Interval, StrOptions
+from sklearn.utils.validation import check_is_fitted, validate_data
+
+from ._validation import check_basis
+from .estimators import SlicedInverse
+from .lift import LiftMatrix
+
+
+class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstimator):
+    """Estimate a relevant subspace and lift the inputs onto split directions.
+
+    ``fit`` fits a clone of ``estimator``, builds a :class:`LiftMatrix` around
+    its subspace, and ``transform`` returns the lifted features, one column
+    per split direction.
+
+    Parameters
+    ----------
+    estimator : subspace estimator, default None
+        Any splitlift estimator (``basis_``, ``eigenvalues_``); None means
+        ``SlicedInverse()``. A clone is fitted, the original is untouched.
+    complement_weight : float in (0, 1), default 0.05
+        Weight of the orthogonal complement of the estimated subspace; it is
+        the lift's leakage with respect to that subspace.
+    n_in_subspace : int, optional
+        Directions inside the subspace; see :meth:`LiftMatrix.from_subspace`.
+    weight_power : float, default 0
+        Weights inside the subspace ∝ eigenvalue ** weight_power.
+    standardize : bool, default True
+        Centre and scale each column to unit variance before estimating and
+        lifting (a zero-variance column keeps scale 1). The lift, its angles
+        and its leakage then live in standardised coordinates.
+    weight_form : {"scale", "repeat"}, default "scale"
+        How the direction weights reach the forest. ``"scale"``: one column
+        per direction, scaled by its weight (``X @ A.T``); honoured by
+        forests whose cut rates follow the width of a cell, such as
+        :class:`StitForestRegressor` and other Mondrian forests, and by
+        distance-based learners. ``"repeat"``: unit directions repeated in
+        proportion to their weights (:meth:`LiftMatrix.repeated`); honoured
+        by forests that draw candidate columns at random per split
+        (``max_features < 1`` in scikit-learn's random and extra-trees
+        forests). Split-searching trees that look at every column (CART
+        with ``max_features=None``, gradient boosting by default) ignore
+        both forms' weights and see only the directions.
+    n_columns : int, optional
+        Number of output columns for ``weight_form="repeat"``; default four
+        per direction.
+    random_state : int, RandomState or None, default None
+        Passed to :meth:`LiftMatrix.from_subspace` (None: deterministic
+        spread of directions).
+
+    Attributes
+    ----------
+    estimator_ : fitted subspace estimator
+    lift_ : LiftMatrix
+        The lift, acting on standardised inputs when ``standardize``.
+    subspace_basis_ : ndarray of shape (n_features_in_, dim_)
+        Orthonormal basis of the estimated subspace, in lift coordinates.
+    output_matrix_ : ndarray of shape (n_output, n_features_in_)
+        The matrix ``transform`` applies (``lift_.matrix`` or its repeated form).
+    mean_, scale_ : ndarray of shape (n_features_in_,)
+        Standardisation; zeros and ones when ``standardize=False``.
+    n_samples_fit_ : int
+    n_features_in_ : int
+    feature_names_in_ : ndarray of str
+        Present when ``X`` had string column names (pandas).
+
+    See Also
+    --------
+    LiftMatrix.from_subspace : how the lift is built.
+    StitForestRegressor : a forest that honours the weights.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from sklearn.ensemble import RandomForestRegressor
+    >>> from sklearn.pipeline import make_pipeline
+    >>> from splitlift import DirectionLift
+    >>> rng = np.random.default_rng(0)
+    >>> X = rng.standard_normal((400, 6))
+    >>> y = np.sin(X[:, 0] + X[:, 1]) + 0.05 * rng.standard_normal(400)
+    >>> model = make_pipeline(DirectionLift(), RandomForestRegressor(n_estimators=20))
+    >>> model.fit(X, y).predict(X[:2]).shape
+    (2,)
+    """
+
+    _parameter_constraints: dict = {
+        "estimator": [HasMethods(["fit"]), None],
+        "complement_weight": [Interval(Real, 0, 1, closed="neither")],
+        "n_in_subspace": [Interval(Integral, 1, None, closed="left"), None],
+        "weight_power": [Interval(Real, None, None, closed="neither")],
+        "standardize": ["boolean"],
+        "weight_form": [StrOptions({"scale", "repeat"})],
+        "n_columns": [Interval(Integral, 1, None, closed="left"), None],
+        "random_state": ["random_state"],
+    }
+
+    def __init__(
+        self,
+        estimator=None,
+        complement_weight=0.05,
+        n_in_subspace=None,
+        weight_power=0.0,
+        standardize=True,
+        weight_form="scale",
+        n_columns=None,
+        random_state=None,
+    ):
+        self.estimator = estimator
+        self.complement_weight = complement_weight
+        self.n_in_subspace = n_in_subspace
+        self.weight_power = weight_power
+        self.standardize = standardize
+        self.weight_form = weight_form
+        self.n_columns = n_columns
+        self.random_state = random_state
+
+    def fit(self, X, y):
+        """Fit the estimator on (standardised) X and build the lift.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_samples, n_features)
+        y : array-like of shape (n_samples,)
+            Numeric response or class labels (as the estimator allows).
+
+        Returns
+        -------
+        self
+        """
+        self._validate_params()
+        X = validate_data(self, X, dtype=float)
+        standardised = self._fit_standardisation(X)
+        estimator = SlicedInverse() if self.estimator is None else self.estimator
+        self.estimator_ = clone(estimator).fit(standardised, y)
+        self.subspace_basis_ = self.estimator_.basis_
+        names = getattr(self, "feature_names_in_", None)
+        self.lift_ = LiftMatrix.from_subspace(
+            self.subspace_basis_,
+            complement_weight=self.complement_weight,
+            n_in_subspace=self.n_in_subspace,
+            eigenvalues=self.estimator_.eigenvalues_,
+            weight_power=self.weight_power,
+            random_state=self.random_state,
+            feature_names=None if names is None else list(names),
+            metadata={"estimator": type(self.estimator_).__name__,
+                      "standardized": bool(self.standardize)},
+        )
+        self.output_matrix_ = (
+            self.lift_.matrix if self.weight_form == "scale" else
+            self.lift_.repeated(self.n_columns)
+        )
+        self.n_samples_fit_ = X.shape[0]
+        return self
+
+    def _fit_standardisation(self, X: np.ndarray) -> np.ndarray:
+        d = X.shape[1]
+        if not self.standardize:
+            self.mean_, self.scale_ = np.zeros(d), np.ones(d)
+            return X
+        self.mean_ = X.mean(axis=0)
+        scale = X.std(axis=0)
+        self.scale_ = np.where(scale > 0, scale, 1.0)
+        return (X - self.mean_) / self.scale_
+
+    def transform(self, X) -> np.ndarray:
+        """Lifted features ``((X - mean_) / scale_) @ output_matrix_.T``.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_samples, n_features_in_)
+
+        Returns
+        -------
+        ndarray of shape (n_samples, n_output)
+        """
+        check_is_fitted(self, "lift_")
+        X = validate_data(self, X, dtype=float, reset=False)
+        return ((X - self.mean_) / self.scale_) @ self.output_matrix_.T
+
+    def reference_in_lift_coordinates(self, reference) -> np.ndarray:
+        """Map a subspace given in input coordinates to the lift's coordinates.
+
+        With ``z = (x - mean) / scale``, ``B^T x = B^T mean + (scale ∘ B)^T z``,
+        so ``span(B)`` in input coordinates is ``span(diag(scale) B)`` in the
+        coordinates the lift acts on.
+
+        Parameters
+        ----------
+        reference : array-like of shape (n_features_in_, k)
+
+        Returns
+        -------
+        ndarray of shape (n_features_in_, k), orthonormal columns
+        """
+        check_is_fitted(self, "lift_")
+        basis = check_basis(reference, "reference", n_features=self.n_features_in_)
+        return check_basis(self.scale_[:, None] * basis, "reference")
+
+    def report(self, reference=None):
+        """Diagnostic report of the fitted lift.
+
+        Parameters
+        ----------
+        reference : array-like of shape (n_features_in_, k), optional
+            A known subspace in input coordinates (columns spanning it); the
+            report then gives principal angles and leakage with respect to it.
+
+        Returns
+        -------
+        splitlift.report.LiftReport
+            ``str()`` reads as a table; ``to_dict()`` is JSON-serialisable.
+        """
+        from .report import LiftReport
+
+        return LiftReport.from_direction_lift(self, reference)
+
+    @property
+    def _n_features_out(self) -> int:
+        return self.output_matrix_.shape[0]
+
+    def __sklearn_tags__(self):
+        tags = super().__sklearn_tags__()
+        tags.target_tags.required = True
+        return tags
