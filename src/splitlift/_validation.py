@@ -34,8 +34,9 @@ def check_finite_matrix(matrix, name: str, *, ndim: int = 2) -> np.ndarray:
 def check_basis(basis, name: str = "basis", n_features: int | None = None) -> np.ndarray:
     """Return an orthonormal basis (d, k) for the column span of ``basis``.
 
-    A 1-D input is read as a single direction. Columns are orthonormalised, so
-    any spanning set is accepted; a rank-deficient set is an error.
+    A 1-D input is read as a single direction. Columns are orthonormalised
+    (Gram-Schmidt order, so an orthonormal input comes back unchanged up to
+    rounding); a rank-deficient set is an error.
     """
     array = np.asarray(basis, dtype=float)
     if array.ndim == 1:
@@ -51,14 +52,16 @@ def check_basis(basis, name: str = "basis", n_features: int | None = None) -> np
             f"{name} has more columns ({array.shape[1]}) than rows ({array.shape[0]}); "
             "pass the subspace as columns of a (n_features, k) matrix."
         )
-    left, singular, _ = np.linalg.svd(array, full_matrices=False)
+    singular = np.linalg.svd(array, compute_uv=False)
     tolerance = max(array.shape) * np.finfo(float).eps * max(singular[0], 1e-300)
     if singular[-1] <= tolerance:
         raise ValueError(
             f"the columns of {name} are linearly dependent (rank {int(np.sum(singular > tolerance))}"
             f" < {array.shape[1]}); drop the redundant columns."
         )
-    return left
+    # QR with a positive diagonal is unique, so rotating the input rotates the basis
+    orthonormal, triangular = np.linalg.qr(array)
+    return orthonormal * np.sign(np.diag(triangular))
 
 
 def check_fraction(value, name: str) -> float:
