@@ -16,7 +16,9 @@ def check_finite_matrix(matrix, name: str, *, ndim: int = 2) -> np.ndarray:
     try:
         array = np.asarray(matrix, dtype=float)
     except (TypeError, ValueError) as error:
-        raise ValueError(f"{name} must be numeric; could not convert it to floats ({error}).")
+        raise ValueError(
+            f"{name} must be numeric; could not convert it to floats ({error})."
+        ) from None
     if array.ndim != ndim:
         raise ValueError(
             f"{name} must be a {ndim}-D array, got shape {array.shape}; "
@@ -56,9 +58,11 @@ def check_basis(basis, name: str = "basis", n_features: int | None = None) -> np
     tolerance = max(array.shape) * np.finfo(float).eps * max(singular[0], 1e-300)
     if singular[-1] <= tolerance:
         raise ValueError(
-            f"the columns of {name} are linearly dependent (rank {int(np.sum(singular > tolerance))}"
-            f" < {array.shape[1]}); drop the redundant columns."
+            f"the columns of {name} are linearly dependent (rank "
+            f"{int(np.sum(singular > tolerance))} < {array.shape[1]}); drop the redundant columns."
         )
+    if np.allclose(array.T @ array, np.eye(array.shape[1]), rtol=0, atol=1e-12):
+        return array  # already orthonormal: keep it bit for bit (saved files round-trip)
     # QR with a positive diagonal is unique, so rotating the input rotates the basis
     orthonormal, triangular = np.linalg.qr(array)
     return orthonormal * np.sign(np.diag(triangular))

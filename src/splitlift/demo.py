@@ -75,7 +75,7 @@ def run_demo(
         )
         cv_mse[name] = float(scores.mean())
         out.write(f"  {name:<20}{scores.mean():>10.4f}{scores.std():>10.4f}\n")
-    out.write(f"\nlargest angle to the true subspace (degrees): "
+    out.write("\nlargest angle to the true subspace (degrees): "
               + ", ".join(f"{k} {v:.1f}" for k, v in angles.items()) + "\n")
     out.write(f"finished in {time.perf_counter() - started:.1f} s "
               "(synthetic data; validate on your own held-out data)\n")

@@ -63,7 +63,10 @@ class LiftMatrix:
             raise ValueError(
                 f"lift matrix row {int(np.argmin(norms))} is zero; every row must be a direction."
             )
-        self._matrix = rows / norms.sum()
+        total = norms.sum()
+        # an already normalised matrix is kept bit for bit (saved lifts round-trip exactly)
+        normalised = abs(total - 1.0) <= 8 * np.finfo(float).eps * rows.shape[0]
+        self._matrix = rows.copy() if normalised else rows / total
         self._matrix.setflags(write=False)
         rank = self.rank()
         if rank < self.n_features:

@@ -78,7 +78,9 @@ def read_lift_file(path, required: tuple[str, ...] = ("matrix",)) -> tuple[dict,
     try:
         metadata = json.loads(contents.pop("metadata").tobytes().decode("utf-8"))
     except (UnicodeDecodeError, json.JSONDecodeError) as error:
-        raise LiftFileError(f"{source} has corrupt metadata ({error}); save the lift again.")
+        raise LiftFileError(
+            f"{source} has corrupt metadata ({error}); save the lift again."
+        ) from None
     if not isinstance(metadata, dict) or metadata.get("format") != LIFT_FORMAT:
         raise LiftFileError(f"{source} is not a splitlift lift file (wrong format tag).")
     version = metadata.get("schema_version")

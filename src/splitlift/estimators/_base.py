@@ -10,7 +10,7 @@ from sklearn.utils._param_validation import Interval, StrOptions
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from .._validation import check_dim, check_sample_count
-from ..moments import DEFAULT_RANK_TOLERANCE, Whitening, check_slice_sizes, slice_response
+from ..moments import Whitening, check_slice_sizes, slice_response
 
 
 class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstimator):
@@ -54,7 +54,9 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         self
         """
         self._validate_params()
-        X, y = validate_data(self, X, y, dtype=float, y_numeric=not self._accepts_labels)
+        X, y = validate_data(self, X, y, dtype=float)
+        if not self._accepts_labels:
+            y = _numeric_response(y, type(self).__name__)
         if y.dtype.kind in "fc" and not np.all(np.isfinite(y)):
             raise ValueError("y contains NaN or infinite values; drop or impute those rows.")
         check_sample_count(X.shape[0])
@@ -147,3 +149,14 @@ class SlicedMomentEstimator(MomentEstimator):
         check_slice_sizes(slices, self.n_slices)
         self.n_slices_ = slices.n_slices
         return slices
+
+
+def _numeric_response(y: np.ndarray, method: str) -> np.ndarray:
+    """Convert ``y`` to floats, or explain that the method needs a numeric response."""
+    try:
+        return y.astype(float)
+    except (TypeError, ValueError):
+        raise ValueError(
+            f"{method} needs a numeric response, but y holds labels such as {y[0]!r}; "
+            "use SlicedInverse or SlicedAverageVariance for class labels, or encode them."
+        ) from None
