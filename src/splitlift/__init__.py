@@ -10,11 +10,12 @@ from .lift import LiftMatrix
 from .moments import CollinearityWarning
 from .persistence import LiftFileError
 from .report import LiftReport
-from .transformer import DirectionLift
+from .transformer import ApplyLift, DirectionLift
 
 __version__ = "0.1.0"
 
 __all__ = [
+    "ApplyLift",
     "CollinearityWarning",
     "DirectionLift",
     "HessianDirections",

@@ -33,16 +33,22 @@ def check_finite_matrix(matrix, name: str, *, ndim: int = 2) -> np.ndarray:
     return array
 
 
-def check_basis(basis, name: str = "basis", n_features: int | None = None) -> np.ndarray:
+def check_basis(basis, name: str = "basis", n_features: int | None = None,
+                allow_empty: bool = False) -> np.ndarray:
     """Return an orthonormal basis (d, k) for the column span of ``basis``.
 
-    A 1-D input is read as a single direction. Columns are orthonormalised
+    A 1-D input is read as a single direction; with ``allow_empty`` a
+    (d, 0) array stands for the zero subspace. Columns are orthonormalised
     (Gram-Schmidt order, so an orthonormal input comes back unchanged up to
     rounding); a rank-deficient set is an error.
     """
     array = np.asarray(basis, dtype=float)
     if array.ndim == 1:
         array = array[:, None]
+    if allow_empty and array.ndim == 2 and array.shape[1] == 0 and array.shape[0] > 0:
+        if n_features is not None and array.shape[0] != n_features:
+            raise ValueError(f"{name} has {array.shape[0]} rows for {n_features} features.")
+        return array  # the zero subspace
     array = check_finite_matrix(array, name)
     if n_features is not None and array.shape[0] != n_features:
         raise ValueError(

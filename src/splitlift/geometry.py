@@ -95,7 +95,8 @@ def leakage(matrix, reference_basis) -> float:
         its row norms sum to one (the lift normalisation), which makes the
         leakage scale-free and puts it in ``[0, 1]``.
     reference_basis : array-like of shape (d, s)
-        Columns spanning the subspace ``S``.
+        Columns spanning the subspace ``S``; with no columns (the zero
+        subspace) the leakage is 1.
 
     Returns
     -------
@@ -109,7 +110,8 @@ def leakage(matrix, reference_basis) -> float:
     0.1
     """
     rows = normalise_rows(matrix)
-    basis = check_basis(reference_basis, "reference_basis", n_features=rows.shape[1])
+    basis = check_basis(reference_basis, "reference_basis", n_features=rows.shape[1],
+                        allow_empty=True)
     outside = rows - (rows @ basis) @ basis.T
     return float(np.linalg.norm(outside, axis=1).sum())
 
@@ -127,7 +129,8 @@ def restricted_singular_value(matrix, reference_basis) -> float:
     Returns
     -------
     float
-        Zero when some direction of ``S`` is never cut by the lift.
+        Zero when some direction of ``S`` is never cut by the lift; NaN for
+        the zero subspace (no columns), which has nothing to cut.
 
     Examples
     --------
@@ -136,5 +139,8 @@ def restricted_singular_value(matrix, reference_basis) -> float:
     0.5
     """
     rows = normalise_rows(matrix)
-    basis = check_basis(reference_basis, "reference_basis", n_features=rows.shape[1])
+    basis = check_basis(reference_basis, "reference_basis", n_features=rows.shape[1],
+                        allow_empty=True)
+    if basis.shape[1] == 0:
+        return float("nan")
     return float(np.linalg.svd(rows @ basis, compute_uv=False)[-1])

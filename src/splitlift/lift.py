@@ -35,6 +35,9 @@ class LiftMatrix:
         The subspace the lift was built around, kept for diagnostics.
     metadata : dict, optional
         JSON-serialisable facts saved with the lift (estimator, settings).
+    input_mean, input_scale : array-like of shape (d,), optional
+        Standardisation applied before the matrix by :meth:`apply`
+        (``z = A (x - mean) / scale``); default none.
 
     Attributes
     ----------
@@ -56,7 +59,8 @@ class LiftMatrix:
     ((3, 3), 0.1)
     """
 
-    def __init__(self, matrix, *, feature_names=None, subspace_basis=None, metadata=None):
+    def __init__(self, matrix, *, feature_names=None, subspace_basis=None, metadata=None,
+                 input_mean=None, input_scale=None):
         rows = check_finite_matrix(matrix, "lift matrix")
         norms = np.linalg.norm(rows, axis=1)
         if np.any(norms == 0):
@@ -87,6 +91,10 @@ class LiftMatrix:
                                                             n_features=self.n_features)
         )
         self.metadata = dict(metadata or {})
+        self.input_mean = _optional_vector(input_mean, "input_mean", self.n_features)
+        self.input_scale = _optional_vector(input_scale, "input_scale", self.n_features)
+        if self.input_scale is not None and np.any(self.input_scale <= 0):
+            raise ValueError("input_scale must be positive; use 1 for constant columns.")
 
     # ----------------------------------------------------------------- views
     @property
@@ -108,6 +116,29 @@ class LiftMatrix:
     @property
     def directions(self) -> np.ndarray:
         return self._matrix / self.weights[:, None]
+
+    def apply(self, X) -> np.ndarray:
+        """Lifted features ``((X - input_mean) / input_scale) @ matrix.T`` of new data.
+
+        Parameters
+        ----------
+        X : array-like of shape (n_samples, n_features)
+
+        Returns
+        -------
+        ndarray of shape (n_samples, n_directions)
+        """
+        data = check_finite_matrix(X, "X")
+        if data.shape[1] != self.n_features:
+            raise ValueError(
+                f"X has {data.shape[1]} columns but the lift was built for {self.n_features} "
+                "features; pass the same columns, in the same order, as at fit time."
+            )
+        if self.input_mean is not None:
+            data = data - self.input_mean
+        if self.input_scale is not None:
+            data = data / self.input_scale
+        return data @ self._matrix.T
 
     def rank(self) -> int:
         """Numerical rank of the matrix (relative singular-value tolerance 1e-10)."""
@@ -160,6 +191,21 @@ class LiftMatrix:
         return cls(np.eye(n_features), feature_names=feature_names)
 
     @classmethod
+    def even_spread(cls, n_features: int, feature_names=None, metadata=None,
+                    input_mean=None, input_scale=None) -> LiftMatrix:
+        """Equal weights on ``2 d`` near-uniformly spread directions of ``R^d``.
+
+        The fallback when no relevant subspace was detected (``dim_ = 0``).
+        """
+        if isinstance(n_features, bool) or not isinstance(n_features, Integral) or n_features < 1:
+            raise ValueError(f"n_features must be a positive integer, got {n_features!r}.")
+        count = 1 if n_features == 1 else 2 * n_features
+        info = {"complement_weight": 1.0, "subspace_dim": 0, "even_spread": True}
+        return cls(spread_directions(n_features, count), feature_names=feature_names,
+                   metadata={**info, **(metadata or {})}, input_mean=input_mean,
+                   input_scale=input_scale)
+
+    @classmethod
     def from_subspace(
         cls,
         basis,
@@ -170,13 +216,17 @@ class LiftMatrix:
         random_state=None,
         feature_names=None,
         metadata=None,
+        input_mean=None,
+        input_scale=None,
     ) -> LiftMatrix:
         """Build a lift with most weight inside ``span(basis)``.
 
         Parameters
         ----------
         basis : array-like of shape (d, s)
-            Columns spanning the subspace S (orthonormalised here).
+            Columns spanning the subspace S (orthonormalised here). With no
+        columns (dimension 0, no detectable structure) the result is
+        :meth:`even_spread`.
         complement_weight : float in (0, 1), default 0.05
             Total weight shared equally by an orthonormal basis of the
             orthogonal complement; it equals the lift's leakage with respect
@@ -194,7 +244,7 @@ class LiftMatrix:
             None gives the deterministic spread; otherwise the spread is
             turned by a random rotation within S (different lifts for an
             ensemble).
-        feature_names, metadata
+        feature_names, metadata, input_mean, input_scale
             Passed to the constructor.
 
         Notes
@@ -211,8 +261,12 @@ class LiftMatrix:
         >>> lift.n_directions, round(float(lift.weights.sum()), 12)
         (10, 1.0)
         """
-        orthonormal = check_basis(basis, "basis")
         complement_weight = check_fraction(complement_weight, "complement_weight")
+        if np.ndim(basis) == 2 and np.shape(basis)[1] == 0:
+            return cls.even_spread(np.shape(basis)[0], feature_names=feature_names,
+                                   metadata=metadata, input_mean=input_mean,
+                                   input_scale=input_scale)
+        orthonormal = check_basis(basis, "basis")
         d, s = orthonormal.shape
         count = (1 if s == 1 else 4 * s) if n_in_subspace is None else n_in_subspace
         if isinstance(count, bool) or not isinstance(count, Integral) or count < s:
@@ -236,14 +290,17 @@ class LiftMatrix:
             feature_names=feature_names,
             subspace_basis=orthonormal,
             metadata={**info, **(metadata or {})},
+            input_mean=input_mean,
+            input_scale=input_scale,
         )
 
     # ------------------------------------------------------------ persistence
     def save(self, path) -> None:
         """Write the lift to ``path`` (.npz with JSON metadata), atomically."""
         arrays = {"matrix": self._matrix}
-        if self.subspace_basis is not None:
-            arrays["subspace_basis"] = self.subspace_basis
+        for name in ("subspace_basis", "input_mean", "input_scale"):
+            if getattr(self, name) is not None:
+                arrays[name] = getattr(self, name)
         metadata = {
             "n_features": self.n_features,
             "n_directions": self.n_directions,
@@ -271,12 +328,23 @@ class LiftMatrix:
                 feature_names=metadata.get("feature_names"),
                 subspace_basis=arrays.get("subspace_basis"),
                 metadata=metadata.get("info"),
+                input_mean=arrays.get("input_mean"),
+                input_scale=arrays.get("input_scale"),
             )
         except ValueError as error:
             raise LiftFileError(f"{path}: invalid lift ({error})") from None
 
     def __repr__(self) -> str:
         return f"LiftMatrix(n_directions={self.n_directions}, n_features={self.n_features})"
+
+
+def _optional_vector(value, name: str, length: int):
+    if value is None:
+        return None
+    vector = check_finite_matrix(value, name, ndim=1)
+    if vector.size != length:
+        raise ValueError(f"{name} has {vector.size} entries for {length} features.")
+    return vector
 
 
 def spread_directions(dim: int, count: int) -> np.ndarray:

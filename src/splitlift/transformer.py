@@ -157,6 +157,8 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
             feature_names=None if names is None else list(names),
             metadata={"estimator": type(self.estimator_).__name__,
                       "standardized": bool(self.standardize)},
+            input_mean=self.mean_ if self.standardize else None,
+            input_scale=self.scale_ if self.standardize else None,
         )
         self.output_matrix_ = (
             self.lift_.matrix if self.weight_form == "scale" else
@@ -235,3 +237,52 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         tags = super().__sklearn_tags__()
         tags.target_tags.required = True
         return tags
+
+
+class ApplyLift(TransformerMixin, BaseEstimator):
+    """Apply a fixed, already built lift, ``X ↦ lift.apply(X)``.
+
+    For production pipelines (a lift loaded with :meth:`LiftMatrix.load`)
+    and for hand-made direction matrices. Fitting learns nothing but checks
+    the number of columns.
+
+    Parameters
+    ----------
+    lift : LiftMatrix or array-like of shape (m, d)
+        An array is wrapped in a :class:`LiftMatrix` (normalised, rank d).
+
+    Attributes
+    ----------
+    lift_ : LiftMatrix
+    n_features_in_ : int
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from splitlift import ApplyLift, LiftMatrix
+    >>> ApplyLift(LiftMatrix.axis(2)).fit_transform(np.ones((1, 2))).tolist()
+    [[0.5, 0.5]]
+    """
+
+    _parameter_constraints: dict = {"lift": ["array-like", HasMethods(["apply"])]}
+
+    def __init__(self, lift):
+        self.lift = lift
+
+    def fit(self, X, y=None):
+        """Check that X has the lift's columns; nothing is learned from the data."""
+        self._validate_params()
+        X = validate_data(self, X, dtype=float)
+        lift = self.lift if isinstance(self.lift, LiftMatrix) else LiftMatrix(self.lift)
+        if lift.n_features != X.shape[1]:
+            raise ValueError(
+                f"the lift has {lift.n_features} columns but X has {X.shape[1]} features."
+            )
+        self.lift_ = lift
+        return self
+
+    def transform(self, X) -> np.ndarray:
+        """Lifted features of X."""
+        check_is_fitted(self, "lift_")
+        X = validate_data(self, X, dtype=float, reset=False)
+        return self.lift_.apply(X)

@@ -6,10 +6,11 @@ from numbers import Integral, Real
 
 import numpy as np
 from sklearn.base import BaseEstimator, ClassNamePrefixFeaturesOutMixin, TransformerMixin
-from sklearn.utils._param_validation import Interval, StrOptions
+from sklearn.utils._param_validation import HasMethods, Interval, StrOptions
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from .._validation import check_dim, check_sample_count
+from ..dimension import RULES, resolve_rule
 from ..moments import Whitening, check_slice_sizes, slice_response
 
 
@@ -31,15 +32,25 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         dropped by the collinearity tolerance.
     eigenvalues_ : ndarray of shape (n_features_in_,)
     dim_ : int
+        The dimension used; with ``dim="auto"`` the rule's choice, possibly
+        0 (no detectable structure; ``basis_`` then has no columns).
+    dim_test_ : splitlift.dimension.DimensionTest or None
+        The table of the dimension rule when ``dim="auto"``.
     n_features_in_ : int
     feature_names_in_ : ndarray of str
         Present when ``X`` had string column names.
     """
 
-    _parameter_constraints: dict = {"dim": [Interval(Integral, 1, None, closed="left")]}
+    _parameter_constraints: dict = {
+        "dim": [Interval(Integral, 1, None, closed="left"), StrOptions({"auto"})],
+        "dim_rule": [StrOptions(set(RULES)), HasMethods(["select"]), None],
+    }
 
     #: Whether ``y`` may be class labels of any dtype.
     _accepts_labels = True
+    #: Dimension rules that make sense for the method, and the default one.
+    _dim_rules = frozenset({"permutation", "ladle", "cv"})
+    _default_dim_rule = "ladle"
 
     def fit(self, X, y):
         """Estimate the subspace.
@@ -60,18 +71,24 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         if y.dtype.kind in "fc" and not np.all(np.isfinite(y)):
             raise ValueError("y contains NaN or infinite values; drop or impute those rows.")
         check_sample_count(X.shape[0])
-        dim = check_dim(self.dim, X.shape[1])
+        automatic = isinstance(self.dim, str)
+        rule = resolve_rule(getattr(self, "dim_rule", None), self) if automatic else None
+        dim = None if automatic else check_dim(self.dim, X.shape[1])
         eigenvalues, directions = self._eigen_decomposition(X, y)
+        self.eigenvalues_ = eigenvalues
+        self.directions_ = directions
         usable = int(np.sum(np.linalg.norm(directions, axis=0) > 0))
-        if dim > usable:
+        self.dim_test_ = None
+        if automatic:
+            dim, self.dim_test_ = rule.select(self, X, y)
+            dim = min(dim, usable)
+        elif dim > usable:
             raise ValueError(
                 f"dim={dim} exceeds the {usable} directions left after dropping constant or "
                 f"collinear columns; choose dim <= {usable} or remove redundant columns."
             )
-        self.eigenvalues_ = eigenvalues
-        self.directions_ = directions
         self.dim_ = dim
-        self.basis_ = np.linalg.qr(directions[:, :dim])[0]
+        self.basis_ = np.linalg.qr(directions[:, :dim])[0] if dim else np.zeros((len(directions), 0))
         return self
 
     def transform(self, X) -> np.ndarray:

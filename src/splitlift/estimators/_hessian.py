@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+from scipy import stats
 
 from ..moments import DEFAULT_RANK_TOLERANCE, centred_cross_product
 from ._base import MomentEstimator
@@ -69,9 +70,13 @@ class HessianDirections(MomentEstimator):
         "residuals": ["boolean"],
     }
     _accepts_labels = False
+    _dim_rules = frozenset({"chi2", "permutation", "ladle", "cv"})
+    _default_dim_rule = "chi2"
 
-    def __init__(self, dim=2, residuals=False, rank_tolerance=DEFAULT_RANK_TOLERANCE):
+    def __init__(self, dim=2, dim_rule=None, residuals=False,
+                 rank_tolerance=DEFAULT_RANK_TOLERANCE):
         self.dim = dim
+        self.dim_rule = dim_rule
         self.residuals = residuals
         self.rank_tolerance = rank_tolerance
 
@@ -86,8 +91,26 @@ class HessianDirections(MomentEstimator):
             # OLS slope Σ^+ Cov(x, y); Σ (y - ȳ) = 0 lets X stand in for X - mean
             slope = whitening.matrix.T @ (whitening.matrix @ (X.T @ weights / X.shape[0]))
             weights = weights - (X @ slope - whitening.mean @ slope)
+        self._weight_variance = float(np.mean(weights**2))
         moment = centred_cross_product(X, whitening.mean, weights) / X.shape[0]
         return whitening.whiten_moment(moment)
+
+    def _chi_square_tests(self, X, y, weighted: bool) -> list[tuple[float, int, float]]:
+        """Tests of ``dim = k``: ``n Σ_{j>k} λ_j^2 / (2 Var(w)) ~ χ²((r-k)(r-k+1)/2)``.
+
+        ``w`` are the pHd weights (centred response or OLS residuals); valid
+        for normal X (Li 1992, Theorem 4.1; from memory). No weighted form.
+        """
+        if weighted:
+            raise ValueError("the weighted chi-square rule exists for SIR only; use dim_rule='chi2'.")
+        n, rank = X.shape[0], self.whitening_.rank
+        squares = self.eigenvalues_[:rank] ** 2
+        tests = []
+        for k in range(rank):
+            statistic = float(n * squares[k:].sum() / (2 * self._weight_variance))
+            df = (rank - k) * (rank - k + 1) // 2
+            tests.append((statistic, df, float(stats.chi2.sf(statistic, df))))
+        return tests
 
     @staticmethod
     def _order(values):

@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import numpy as np
+from scipy import stats
 
-from ..moments import DEFAULT_RANK_TOLERANCE, slice_covariances
+from ..dimension import satterthwaite_p_value
+from ..moments import DEFAULT_RANK_TOLERANCE, _row_chunks, slice_covariances
 from ._base import SlicedMomentEstimator
 
 
@@ -75,16 +77,58 @@ class SlicedInverse(SlicedMomentEstimator):
     [0.7, 0.7, 0.0, 0.0, 0.0]
     """
 
-    def __init__(self, n_slices=10, dim=2, slicing="auto", rank_tolerance=DEFAULT_RANK_TOLERANCE):
+    _dim_rules = frozenset({"chi2", "weighted_chi2", "permutation", "ladle", "cv"})
+    _default_dim_rule = "chi2"
+
+    def __init__(self, n_slices=10, dim=2, dim_rule=None, slicing="auto",
+                 rank_tolerance=DEFAULT_RANK_TOLERANCE):
         self.n_slices = n_slices
         self.dim = dim
+        self.dim_rule = dim_rule
         self.slicing = slicing
         self.rank_tolerance = rank_tolerance
 
     def _method_matrix(self, X, y, whitening):
         slices = self._slices(y)
         means = (slices.means(X) - whitening.mean) @ whitening.matrix.T
+        self._slice_fit = (slices, means)
         return (means * slices.proportions[:, None]).T @ means
+
+    def _chi_square_tests(self, X, y, weighted: bool) -> list[tuple[float, int, float]]:
+        """Sequential tests of ``dim = k`` for k = 0 .. min(r, H - 1) - 1.
+
+        Unweighted: ``n Σ_{j>k} λ_j ~ χ²((r - k)(H - k - 1))`` for normal X
+        (Li 1991, Theorem 5.1). Weighted: the same statistic against
+        ``Σ ω_j χ²_1``, the ``ω_j`` being the eigenvalues of the covariance of
+        ``Γ_0^T z_i ⊗ Ψ_0^T D_p^{-1/2} J_i`` (Bura & Cook 2001), where
+        ``Γ_0, Ψ_0`` span the left and right singular spaces of the scaled
+        slice-mean matrix beyond the first k and ``J_i`` is the slice
+        indicator of row i.
+        """
+        slices, means = self._slice_fit
+        n, rank, n_slices = X.shape[0], self.whitening_.rank, slices.n_slices
+        root_p = np.sqrt(slices.proportions)
+        scaled = means.T * root_p  # (r, H); its squared singular values are the λ_j
+        left, singular, right_t = np.linalg.svd(scaled, full_matrices=True)
+        eigen = np.zeros(rank)
+        eigen[: singular.size] = singular**2
+        Z = self.whitening_.transform(X) if weighted else None
+        tests = []
+        for k in range(min(rank, n_slices - 1)):
+            statistic = float(n * eigen[k:].sum())
+            df = (rank - k) * (n_slices - k - 1)
+            if not weighted:
+                tests.append((statistic, df, float(stats.chi2.sf(statistic, df))))
+                continue
+            outside_right = right_t[k:].T  # (H, H - k), contains sqrt(p)
+            projector = outside_right @ outside_right.T - np.outer(root_p, root_p)
+            values, vectors = np.linalg.eigh(projector)
+            psi = vectors[:, values > 0.5]  # (H, H - k - 1)
+            row_factor = psi[slices.labels] / root_p[slices.labels, None]
+            covariance = _kronecker_covariance(Z @ left[:, k:], row_factor)
+            weights = np.linalg.eigvalsh(covariance)
+            tests.append((statistic, df, satterthwaite_p_value(statistic, weights)))
+        return tests
 
 
 class SlicedAverageVariance(SlicedMomentEstimator):
@@ -136,9 +180,11 @@ class SlicedAverageVariance(SlicedMomentEstimator):
     2
     """
 
-    def __init__(self, n_slices=5, dim=2, slicing="auto", rank_tolerance=DEFAULT_RANK_TOLERANCE):
+    def __init__(self, n_slices=5, dim=2, dim_rule=None, slicing="auto",
+                 rank_tolerance=DEFAULT_RANK_TOLERANCE):
         self.n_slices = n_slices
         self.dim = dim
+        self.dim_rule = dim_rule
         self.slicing = slicing
         self.rank_tolerance = rank_tolerance
 
@@ -150,3 +196,15 @@ class SlicedAverageVariance(SlicedMomentEstimator):
         deviations = np.eye(whitening.rank) - covariances
         squared = deviations @ deviations
         return np.tensordot(slices.proportions, squared, axes=1)
+
+
+def _kronecker_covariance(left: np.ndarray, right: np.ndarray) -> np.ndarray:
+    """Covariance of the rows ``left_i ⊗ right_i``, accumulated in row chunks."""
+    width = left.shape[1] * right.shape[1]
+    total, second = np.zeros(width), np.zeros((width, width))
+    for rows in _row_chunks(left.shape[0], width):
+        products = (left[rows, :, None] * right[rows, None, :]).reshape(-1, width)
+        total += products.sum(axis=0)
+        second += products.T @ products
+    mean = total / left.shape[0]
+    return second / left.shape[0] - np.outer(mean, mean)

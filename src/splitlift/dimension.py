@@ -1,0 +1,359 @@
+"""Choosing the dimension of the estimated subspace (``dim="auto"``).
+
+Each rule is a small scikit-learn-style object (parameters in ``__init__``,
+nested parameters reachable by ``GridSearchCV`` as ``dim_rule__alpha``) with
+one method, ``select(estimator, X, y)``, returning the chosen dimension and a
+:class:`DimensionTest` table. ``dim = 0`` is a valid answer: no detectable
+structure.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+from numbers import Integral, Real
+
+import numpy as np
+from scipy import stats
+from sklearn.base import BaseEstimator, clone
+from sklearn.utils import check_random_state
+
+from . import geometry
+from .moments import Whitening
+
+
+@dataclass
+class DimensionTest:
+    """The table a dimension rule leaves behind.
+
+    Attributes
+    ----------
+    rule : str
+    chosen : int
+    rows : list of dict
+        One row per candidate dimension k, with keys ``k``, ``statistic``,
+        ``df`` (or ``null_draws``), ``p_value`` (tests) or ``criterion``
+        (ladle, cross-validation); missing entries are None.
+    """
+
+    rule: str
+    chosen: int
+    rows: list[dict] = field(default_factory=list)
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+    def __str__(self) -> str:
+        columns = [c for c in ("k", "statistic", "df", "null_draws", "p_value", "criterion",
+                               "std") if any(row.get(c) is not None for row in self.rows)]
+        lines = [f"dimension rule: {self.rule} -> dim = {self.chosen}",
+                 "  " + "".join(f"{c:>12}" for c in columns)]
+        for row in self.rows:
+            cells = []
+            for column in columns:
+                value = row.get(column)
+                cells.append(f"{'-':>12}" if value is None else
+                             f"{value:>12d}" if isinstance(value, int) else f"{value:>12.4g}")
+            mark = "  <" if row["k"] == self.chosen else ""
+            lines.append("  " + "".join(cells) + mark)
+        return "\n".join(lines)
+
+
+def _check_alpha(alpha) -> float:
+    if isinstance(alpha, bool) or not isinstance(alpha, Real) or not 0 < alpha < 1:
+        raise ValueError(f"alpha must be strictly between 0 and 1, got {alpha!r}.")
+    return float(alpha)
+
+
+def _check_draws(value, name: str, minimum: int = 2) -> int:
+    if isinstance(value, bool) or not isinstance(value, Integral) or value < minimum:
+        raise ValueError(f"{name} must be an integer >= {minimum}, got {value!r}.")
+    return int(value)
+
+
+def default_max_dim(n_features: int) -> int:
+    """Largest dimension a rule considers: d - 1 for d <= 10, else floor(d / log d).
+
+    The second branch is the ladle's default (Luo & Li 2016) and keeps
+    resampling rules affordable for wide data.
+    """
+    if n_features <= 10:
+        return max(n_features - 1, 1)
+    return int(n_features / np.log(n_features))
+
+
+def _fixed_dim(estimator, dim: int):
+    """An unfitted copy of ``estimator`` that estimates exactly ``dim`` directions."""
+    return clone(estimator).set_params(dim=dim)
+
+
+def _tail_statistic(eigenvalues: np.ndarray, k: int) -> float:
+    return float(np.sum(np.abs(eigenvalues[k:])))
+
+
+class SequentialChiSquare(BaseEstimator):
+    """Sequential asymptotic chi-square tests of ``dim = k`` against ``dim > k``.
+
+    Tests k = 0, 1, ... in turn and returns the first k not rejected at
+    level ``alpha``. Available for SIR and pHd.
+
+    Parameters
+    ----------
+    alpha : float in (0, 1), default 0.05
+    weighted : bool, default False
+        SIR only. False: ``n Σ_{j>k} λ_j ~ χ²((p-k)(H-k-1))``, valid for
+        normal X (Li 1991). True: the weighted chi-square limit of Bura &
+        Cook (2001), valid without normality; its p-value uses the
+        Satterthwaite (1946) two-moment approximation.
+
+    References
+    ----------
+    Li, K.-C. (1991). Sliced inverse regression for dimension reduction. JASA 86.
+    Li, K.-C. (1992). On principal Hessian directions. JASA 87, Theorem 4.1.
+    Bura, E. and Cook, R. D. (2001). Extending sliced inverse regression: the
+    weighted chi-squared test. JASA 96, 996-1003.
+    Satterthwaite, F. E. (1946). An approximate distribution of estimates of
+    variance components. Biometrics Bulletin 2, 110-114.
+    """
+
+    def __init__(self, alpha=0.05, weighted=False):
+        self.alpha = alpha
+        self.weighted = weighted
+
+    def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
+        alpha = _check_alpha(self.alpha)
+        tests = getattr(estimator, "_chi_square_tests", None)
+        if tests is None:
+            raise ValueError(
+                f"dim_rule='chi2' is not available for {type(estimator).__name__}; "
+                "use 'permutation', 'ladle' or 'cv'."
+            )
+        rows, chosen = [], None
+        for k, (statistic, df, p_value) in enumerate(tests(X, y, self.weighted)):
+            rows.append({"k": k, "statistic": statistic, "df": df, "p_value": p_value})
+            if p_value > alpha:
+                chosen = k
+                break
+        if chosen is None:  # every test rejected: the largest dimension the test allows
+            chosen = len(rows)
+        name = "weighted chi-square (Bura & Cook 2001)" if self.weighted else "chi-square"
+        return chosen, DimensionTest(f"sequential {name}, alpha = {alpha:g}", chosen, rows)
+
+
+def satterthwaite_p_value(statistic: float, weights: np.ndarray) -> float:
+    """P(Σ w_j χ²_1 > statistic) by matching a scaled chi-square's two moments."""
+    weights = weights[weights > 1e-12 * max(weights.max(), 1e-300)]
+    if weights.size == 0:
+        return 1.0
+    scale = np.sum(weights**2) / np.sum(weights)
+    df = np.sum(weights) ** 2 / np.sum(weights**2)
+    return float(stats.chi2.sf(statistic / scale, df))
+
+
+class PermutationTest(BaseEstimator):
+    """Sequential permutation tests of ``dim = k`` (Cook & Yin 2001), for any estimator.
+
+    In whitened coordinates, split ``Z = Z_1 Γ_1^T + Z_2 Γ_2^T`` along the
+    first k estimated directions ``Γ_1`` and the rest ``Γ_2``. Under
+    ``dim = k`` the part ``Z_2`` is independent of ``(y, Z_1)`` (given the
+    linearity condition), so permuting its rows leaves the distribution of
+    the tail statistic ``Σ_{j>k} |λ_j|`` unchanged. The p-value is
+    ``(1 + #{null >= observed}) / (1 + n_permutations)``.
+
+    Parameters
+    ----------
+    alpha : float in (0, 1), default 0.05
+    n_permutations : int >= 2, default 200
+    random_state : int, RandomState or None, default None
+
+    References
+    ----------
+    Cook, R. D. and Yin, X. (2001). Dimension reduction and visualization in
+    discriminant analysis. Australian & New Zealand Journal of Statistics
+    43, 147-199.
+    """
+
+    def __init__(self, alpha=0.05, n_permutations=200, random_state=None):
+        self.alpha = alpha
+        self.n_permutations = n_permutations
+        self.random_state = random_state
+
+    def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
+        alpha = _check_alpha(self.alpha)
+        n_permutations = _check_draws(self.n_permutations, "n_permutations")
+        generator = check_random_state(self.random_state)
+        Z = Whitening.fit(X).transform(X)
+        d = Z.shape[1]
+        top = min(default_max_dim(d), d - 1)
+        full = _fixed_dim(estimator, max(top, 1)).fit(Z, y)
+        rows, chosen = [], top + 1 if top < d else d
+        for k in range(top + 1):
+            observed = _tail_statistic(full.eigenvalues_, k)
+            inside = full.directions_[:, :k]
+            inside = np.linalg.qr(inside)[0] if k else np.zeros((d, 0))
+            outside = geometry.orthonormal_complement(inside) if k else np.eye(d)
+            fixed, moving = Z @ inside @ inside.T, Z @ outside
+            null = np.empty(n_permutations)
+            for draw in range(n_permutations):
+                permuted = fixed + moving[generator.permutation(Z.shape[0])] @ outside.T
+                refit = _fixed_dim(estimator, max(top, 1)).fit(permuted, y)
+                null[draw] = _tail_statistic(refit.eigenvalues_, k)
+            p_value = float((1 + np.sum(null >= observed)) / (1 + n_permutations))
+            rows.append({"k": k, "statistic": observed, "null_draws": n_permutations,
+                         "p_value": p_value})
+            if p_value > alpha:
+                chosen = k
+                break
+        chosen = min(chosen, d)
+        return chosen, DimensionTest(f"permutation test, alpha = {alpha:g}", chosen, rows)
+
+
+class LadleEstimator(BaseEstimator):
+    """The ladle estimator of the dimension (Luo & Li 2016).
+
+    Minimises ``g(k) = f(k) + φ(k)`` over ``k = 0 .. k_max``, where
+    ``φ(k) = |λ_{k+1}| / (1 + Σ_{i=0}^{k_max} |λ_{i+1}|)`` falls with the
+    eigenvalues and ``f(k) = f0(k) / (1 + Σ_i f0(i))`` with
+    ``f0(k) = mean over bootstrap fits of 1 - |det(B_k^T B*_k)|`` (and
+    ``f0(0) = 0``) rises once the k-th eigenvector becomes unstable.
+    ``|det(B_k^T B*_k)|`` is the product of the cosines of the principal
+    angles between the full-data and bootstrap subspaces.
+
+    Parameters
+    ----------
+    n_boot : int >= 2, default 50
+    max_dim : int, optional
+        ``k_max``; default :func:`default_max_dim`.
+    random_state : int, RandomState or None, default None
+
+    References
+    ----------
+    Luo, W. and Li, B. (2016). Combining eigenvalues and variation of
+    eigenvectors for order determination. Biometrika 103, 875-887.
+    """
+
+    def __init__(self, n_boot=50, max_dim=None, random_state=None):
+        self.n_boot = n_boot
+        self.max_dim = max_dim
+        self.random_state = random_state
+
+    def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
+        n_boot = _check_draws(self.n_boot, "n_boot")
+        n, d = X.shape
+        top = default_max_dim(d) if self.max_dim is None else int(self.max_dim)
+        if not 1 <= top <= d:
+            raise ValueError(f"max_dim must be between 1 and n_features = {d}, got {top}.")
+        generator = check_random_state(self.random_state)
+        full = _fixed_dim(estimator, top).fit(X, y)
+        full_bases = [np.linalg.qr(full.directions_[:, :k])[0] for k in range(1, top + 1)]
+        variation = np.zeros(top + 1)
+        for _ in range(n_boot):
+            rows = generator.randint(0, n, n)
+            boot = _fixed_dim(estimator, top).fit(X[rows], y[rows])
+            for k in range(1, top + 1):
+                boot_basis = np.linalg.qr(boot.directions_[:, :k])[0]
+                cosines = np.cos(geometry.principal_angles(full_bases[k - 1], boot_basis))
+                variation[k] += (1.0 - np.prod(cosines)) / n_boot
+        eigen = np.abs(full.eigenvalues_)
+        padded = np.append(eigen, 0.0)[: top + 1]
+        phi = padded / (1.0 + padded.sum())
+        f = variation / (1.0 + variation.sum())
+        criterion = phi + f
+        chosen = int(np.argmin(criterion))
+        rows_out = [{"k": k, "criterion": float(criterion[k])} for k in range(top + 1)]
+        return chosen, DimensionTest(f"ladle ({n_boot} bootstrap fits)", chosen, rows_out)
+
+
+class CrossValidatedDimension(BaseEstimator):
+    """Choose the dimension by the cross-validated error of a downstream forest.
+
+    For each k in ``0 .. max_dim`` a ``DirectionLift`` with the estimator at
+    ``dim = k`` feeds ``forest``; the k with the lowest mean error is chosen
+    (``k = 0`` uses the even-spread lift, no subspace). This costs
+    ``(max_dim + 1) * cv`` forest fits, hence the modest defaults.
+
+    Parameters
+    ----------
+    forest : scikit-learn estimator, optional
+        Default: ``RandomForestRegressor(n_estimators=50)`` for a numeric
+        response, ``RandomForestClassifier`` for class labels.
+    cv : int or cross-validation splitter, default 5
+    max_dim : int, optional
+        Default ``min(default_max_dim(d), 5)``.
+    complement_weight : float, default 0.05
+    random_state : int or None, default None
+        Seeds the default forest and the fold split.
+    """
+
+    def __init__(self, forest=None, cv=5, max_dim=None, complement_weight=0.05,
+                 random_state=None):
+        self.forest = forest
+        self.cv = cv
+        self.max_dim = max_dim
+        self.complement_weight = complement_weight
+        self.random_state = random_state
+
+    def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
+        from sklearn.model_selection import KFold, StratifiedKFold, cross_val_score
+        from sklearn.pipeline import make_pipeline
+
+        from .moments import _is_discrete
+        from .lift import LiftMatrix
+        from .transformer import ApplyLift, DirectionLift
+
+        d = X.shape[1]
+        top = min(default_max_dim(d), 5) if self.max_dim is None else int(self.max_dim)
+        if not 1 <= top <= d:
+            raise ValueError(f"max_dim must be between 1 and n_features = {d}, got {top}.")
+        classify = _is_discrete(np.asarray(y))
+        forest = self.forest if self.forest is not None else _default_forest(
+            classify, self.random_state)
+        cv = self.cv
+        if isinstance(cv, Integral):
+            splitter = StratifiedKFold if classify else KFold
+            cv = splitter(int(cv), shuffle=True, random_state=self.random_state)
+        rows, means = [], []
+        for k in range(top + 1):
+            lift = ApplyLift(LiftMatrix.even_spread(d)) if k == 0 else DirectionLift(
+                _fixed_dim(estimator, k), complement_weight=self.complement_weight,
+                standardize=False)
+            scores = cross_val_score(make_pipeline(lift, clone(forest)), X, y, cv=cv)
+            # scores are "higher is better": report the error as 1 - accuracy or -R^2 + 1
+            error = 1.0 - scores
+            means.append(error.mean())
+            rows.append({"k": k, "criterion": float(error.mean()), "std": float(error.std())})
+        chosen = int(np.argmin(means))
+        metric = "1 - accuracy" if classify else "1 - R^2"
+        return chosen, DimensionTest(f"cross-validation ({metric})", chosen, rows)
+
+
+def _default_forest(classify: bool, random_state):
+    from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
+
+    forest = RandomForestClassifier if classify else RandomForestRegressor
+    return forest(n_estimators=50, random_state=random_state, n_jobs=-1)
+
+
+RULES = {
+    "chi2": SequentialChiSquare,
+    "weighted_chi2": lambda: SequentialChiSquare(weighted=True),
+    "permutation": PermutationTest,
+    "ladle": LadleEstimator,
+    "cv": CrossValidatedDimension,
+}
+
+
+def resolve_rule(rule, estimator):
+    """Turn ``dim_rule`` (None, a name or a rule object) into a rule object."""
+    if rule is None:
+        rule = estimator._default_dim_rule
+    if isinstance(rule, str):
+        available = estimator._dim_rules
+        if rule not in available:
+            raise ValueError(
+                f"dim_rule={rule!r} is not available for {type(estimator).__name__}; "
+                f"choose one of {sorted(available)}."
+            )
+        return RULES[rule]()
+    if not hasattr(rule, "select"):
+        raise ValueError(f"dim_rule must be a rule name or an object with select(), got {rule!r}.")
+    return rule
