@@ -81,6 +81,14 @@ def default_max_dim(n_features: int) -> int:
     return int(n_features / np.log(n_features))
 
 
+def _largest_candidate(estimator, n_features: int, requested=None) -> int:
+    """Largest dimension a rule tries: requested or default, within what the method gives."""
+    top = default_max_dim(n_features) if requested is None else int(requested)
+    if not 1 <= top <= n_features:
+        raise ValueError(f"max_dim must be between 1 and n_features = {n_features}, got {top}.")
+    return max(1, min(top, getattr(estimator, "_n_usable", n_features)))
+
+
 def _fixed_dim(estimator, dim: int):
     """An unfitted copy of ``estimator`` that estimates exactly ``dim`` directions."""
     return clone(estimator).set_params(dim=dim)
@@ -183,7 +191,7 @@ class PermutationTest(BaseEstimator):
         generator = check_random_state(self.random_state)
         Z = Whitening.fit(X).transform(X)
         d = Z.shape[1]
-        top = min(default_max_dim(d), d - 1)
+        top = min(_largest_candidate(estimator, d), d - 1)
         full = _fixed_dim(estimator, max(top, 1)).fit(Z, y)
         rows, chosen = [], top + 1 if top < d else d
         for k in range(top + 1):
@@ -223,6 +231,14 @@ class LadleEstimator(BaseEstimator):
     n_boot : int >= 2, default 50
     max_dim : int, optional
         ``k_max``; default :func:`default_max_dim`.
+    normalize : bool or "auto", default "auto"
+        Divide the eigenvalues by their sum before forming ``φ``. The
+        published criterion uses them as they are, which suits SIR and SAVE
+        (scale-free eigenvalues; SIR's are squared correlations, at most 1)
+        and lets it choose 0 when nothing is there. For pHd, OPG and ADE the
+        eigenvalues carry the units of y or of the gradients, so the raw
+        criterion would depend on them. ``"auto"``: raw for SIR and SAVE,
+        normalised otherwise.
     random_state : int, RandomState or None, default None
 
     References
@@ -231,17 +247,16 @@ class LadleEstimator(BaseEstimator):
     eigenvectors for order determination. Biometrika 103, 875-887.
     """
 
-    def __init__(self, n_boot=50, max_dim=None, random_state=None):
+    def __init__(self, n_boot=50, max_dim=None, normalize="auto", random_state=None):
         self.n_boot = n_boot
         self.max_dim = max_dim
+        self.normalize = normalize
         self.random_state = random_state
 
     def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
         n_boot = _check_draws(self.n_boot, "n_boot")
         n, d = X.shape
-        top = default_max_dim(d) if self.max_dim is None else int(self.max_dim)
-        if not 1 <= top <= d:
-            raise ValueError(f"max_dim must be between 1 and n_features = {d}, got {top}.")
+        top = _largest_candidate(estimator, d, self.max_dim)
         generator = check_random_state(self.random_state)
         full = _fixed_dim(estimator, top).fit(X, y)
         full_bases = [np.linalg.qr(full.directions_[:, :k])[0] for k in range(1, top + 1)]
@@ -254,6 +269,11 @@ class LadleEstimator(BaseEstimator):
                 cosines = np.cos(geometry.principal_angles(full_bases[k - 1], boot_basis))
                 variation[k] += (1.0 - np.prod(cosines)) / n_boot
         eigen = np.abs(full.eigenvalues_)
+        normalize = self.normalize
+        if normalize == "auto":
+            normalize = not getattr(estimator, "_scale_free_eigenvalues", False)
+        if normalize and eigen.sum() > 0:
+            eigen = eigen / eigen.sum()
         padded = np.append(eigen, 0.0)[: top + 1]
         phi = padded / (1.0 + padded.sum())
         f = variation / (1.0 + variation.sum())
@@ -296,14 +316,13 @@ class CrossValidatedDimension(BaseEstimator):
         from sklearn.model_selection import KFold, StratifiedKFold, cross_val_score
         from sklearn.pipeline import make_pipeline
 
-        from .moments import _is_discrete
         from .lift import LiftMatrix
+        from .moments import _is_discrete
         from .transformer import ApplyLift, DirectionLift
 
         d = X.shape[1]
-        top = min(default_max_dim(d), 5) if self.max_dim is None else int(self.max_dim)
-        if not 1 <= top <= d:
-            raise ValueError(f"max_dim must be between 1 and n_features = {d}, got {top}.")
+        top = _largest_candidate(estimator, d, min(default_max_dim(d), 5)
+                                 if self.max_dim is None else self.max_dim)
         classify = _is_discrete(np.asarray(y))
         forest = self.forest if self.forest is not None else _default_forest(
             classify, self.random_state)

@@ -17,6 +17,7 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 from ._validation import check_basis
 from .estimators import SlicedInverse
 from .lift import LiftMatrix
+from .linearity import check_linearity
 
 
 class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstimator):
@@ -73,6 +74,9 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
     mean_, scale_ : ndarray of shape (n_features_in_,)
         Standardisation; zeros and ones when ``standardize=False``.
     n_samples_fit_ : int
+    linearity_ : splitlift.linearity.LinearityCheck
+        How far the standardised inputs are from the moment methods'
+        linearity condition, along the estimated subspace.
     n_features_in_ : int
     feature_names_in_ : ndarray of str
         Present when ``X`` had string column names (pandas).
@@ -165,6 +169,7 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
             self.lift_.repeated(self.n_columns)
         )
         self.n_samples_fit_ = X.shape[0]
+        self.linearity_ = check_linearity(standardised, self.subspace_basis_)
         return self
 
     def _fit_standardisation(self, X: np.ndarray) -> np.ndarray:
@@ -211,7 +216,7 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         basis = check_basis(reference, "reference", n_features=self.n_features_in_)
         return check_basis(self.scale_[:, None] * basis, "reference")
 
-    def report(self, reference=None):
+    def report(self, reference=None, stability=None):
         """Diagnostic report of the fitted lift.
 
         Parameters
@@ -219,6 +224,10 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         reference : array-like of shape (n_features_in_, k), optional
             A known subspace in input coordinates (columns spanning it); the
             report then gives principal angles and leakage with respect to it.
+        stability : SubspaceStability, optional
+            Result of ``splitlift.stability(self, X, y)``; the report then
+            shows bootstrap angle quantiles and the leakage of the lift with
+            respect to the bootstrap subspaces.
 
         Returns
         -------
@@ -227,7 +236,7 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         """
         from .report import LiftReport
 
-        return LiftReport.from_direction_lift(self, reference)
+        return LiftReport.from_direction_lift(self, reference, stability)
 
     @property
     def _n_features_out(self) -> int:

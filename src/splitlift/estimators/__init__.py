@@ -1,10 +1,14 @@
 """Subspace estimators: each fits ``basis_``, ``eigenvalues_`` and ``dim_``."""
 
 from ._base import MomentEstimator, SubspaceEstimator
+from ._derivative import AverageDerivative
+from ._gradient import GradientOuterProduct
 from ._hessian import HessianDirections
 from ._sliced import SlicedAverageVariance, SlicedInverse
 
 __all__ = [
+    "AverageDerivative",
+    "GradientOuterProduct",
     "HessianDirections",
     "MomentEstimator",
     "SlicedAverageVariance",

@@ -78,6 +78,7 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         self.eigenvalues_ = eigenvalues
         self.directions_ = directions
         usable = int(np.sum(np.linalg.norm(directions, axis=0) > 0))
+        self._n_usable = usable  # rules never try more directions than the method gives
         self.dim_test_ = None
         if automatic:
             dim, self.dim_test_ = rule.select(self, X, y)
@@ -88,7 +89,8 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
                 f"collinear columns; choose dim <= {usable} or remove redundant columns."
             )
         self.dim_ = dim
-        self.basis_ = np.linalg.qr(directions[:, :dim])[0] if dim else np.zeros((len(directions), 0))
+        self.basis_ = (np.linalg.qr(directions[:, :dim])[0] if dim
+                       else np.zeros((directions.shape[0], 0)))
         return self
 
     def transform(self, X) -> np.ndarray:
@@ -154,6 +156,9 @@ class MomentEstimator(SubspaceEstimator):
 
 class SlicedMomentEstimator(MomentEstimator):
     """Moment method whose matrix is built from slices of the response."""
+
+    #: Eigenvalues do not depend on the units of X or y (used by the ladle).
+    _scale_free_eigenvalues = True
 
     _parameter_constraints: dict = {
         **MomentEstimator._parameter_constraints,

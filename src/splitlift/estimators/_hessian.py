@@ -14,8 +14,10 @@ class HessianDirections(MomentEstimator):
 
     Parameters
     ----------
-    dim : int, default 2
-        Dimension of the estimated subspace.
+    dim : int or "auto", default 2
+        Dimension of the estimated subspace, or ``"auto"``.
+    dim_rule : {"chi2", "permutation", "ladle", "cv"} or rule object, default None
+        Rule for ``dim="auto"``; None means ``"chi2"``, the test of Li (1992).
     residuals : bool, default False
         False: response-based pHd, weights ``y - ȳ``. True: residual-based
         pHd, weights the residuals of an ordinary least-squares fit of y on
@@ -102,7 +104,9 @@ class HessianDirections(MomentEstimator):
         for normal X (Li 1992, Theorem 4.1; from memory). No weighted form.
         """
         if weighted:
-            raise ValueError("the weighted chi-square rule exists for SIR only; use dim_rule='chi2'.")
+            raise ValueError(
+                "the weighted chi-square rule exists for SIR only; use dim_rule='chi2'."
+            )
         n, rank = X.shape[0], self.whitening_.rank
         squares = self.eigenvalues_[:rank] ** 2
         tests = []

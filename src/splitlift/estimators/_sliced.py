@@ -20,8 +20,13 @@ class SlicedInverse(SlicedMomentEstimator):
     ----------
     n_slices : int, default 10
         Number of equal-count slices of a continuous response.
-    dim : int, default 2
-        Dimension of the estimated subspace (1 <= dim <= n_features).
+    dim : int or "auto", default 2
+        Dimension of the estimated subspace (1 <= dim <= n_features), or
+        ``"auto"`` to let ``dim_rule`` choose it (0 allowed).
+    dim_rule : {"chi2", "weighted_chi2", "permutation", "ladle", "cv"} or rule, default None
+        Rule for ``dim="auto"``; None means ``"chi2"``, the sequential
+        chi-square test of Li (1991); ``"weighted_chi2"`` drops its normality
+        assumption (Bura & Cook 2001). See :mod:`splitlift.dimension`.
     slicing : {"auto", "count", "value"}, default "auto"
         How the response is sliced; see :func:`splitlift.moments.slice_response`.
         Class labels are always sliced by value.
@@ -139,7 +144,9 @@ class SlicedAverageVariance(SlicedMomentEstimator):
     n_slices : int, default 5
         Number of equal-count slices. SAVE estimates a covariance in each
         slice, so it wants more rows per slice than SIR (common practice).
-    dim : int, default 2
+    dim : int or "auto", default 2
+    dim_rule : {"permutation", "ladle", "cv"} or rule object, default None
+        Rule for ``dim="auto"``; None means the ladle (Luo & Li 2016).
     slicing : {"auto", "count", "value"}, default "auto"
     rank_tolerance : float, default 1e-10
         See :class:`SlicedInverse`.

@@ -1,0 +1,169 @@
+"""Bootstrap stability of an estimated subspace and of the lift built on it."""
+
+from __future__ import annotations
+
+import sys
+from dataclasses import dataclass
+from numbers import Integral
+
+import numpy as np
+from joblib import Parallel, delayed
+from sklearn.base import clone
+from sklearn.utils import check_random_state
+from sklearn.utils.validation import check_is_fitted
+
+from . import geometry
+from .lift import LiftMatrix
+
+QUANTILES = (0.05, 0.25, 0.5, 0.75, 0.95)
+
+
+@dataclass
+class SubspaceStability:
+    """Bootstrap variability of a subspace estimate.
+
+    Attributes
+    ----------
+    angles : ndarray of shape (n_boot, dim)
+        Principal angles (radians, largest first) between the full-data
+        subspace and each bootstrap subspace.
+    leakage : ndarray of shape (n_boot,)
+        Leakage of the full-data lift with respect to each bootstrap subspace.
+    dim : int
+    n_failed : int
+        Bootstrap fits that raised (for instance a resample that lost a rare
+        class); they are left out.
+    """
+
+    angles: np.ndarray
+    leakage: np.ndarray
+    dim: int
+    n_failed: int = 0
+
+    @property
+    def n_boot(self) -> int:
+        return int(self.angles.shape[0])
+
+    def largest_angle_quantiles(self) -> dict[str, float]:
+        """Quantiles of the largest principal angle, in degrees."""
+        largest = np.degrees(self.angles[:, 0]) if self.dim else np.zeros(self.n_boot)
+        return {f"q{int(100 * q):02d}": float(np.quantile(largest, q)) for q in QUANTILES}
+
+    def leakage_quantiles(self) -> dict[str, float]:
+        return {f"q{int(100 * q):02d}": float(np.quantile(self.leakage, q)) for q in QUANTILES}
+
+    def to_dict(self) -> dict:
+        return {
+            "n_boot": self.n_boot,
+            "n_failed": self.n_failed,
+            "dim": self.dim,
+            "largest_angle_degrees": self.largest_angle_quantiles(),
+            "leakage": self.leakage_quantiles(),
+        }
+
+    def __str__(self) -> str:
+        angles = self.largest_angle_quantiles()
+        leak = self.leakage_quantiles()
+        header = "".join(f"{name:>9}" for name in angles)
+        return "\n".join([
+            f"bootstrap stability ({self.n_boot} resamples, {self.n_failed} failed)",
+            f"  {'':<26}{header}",
+            f"  {'largest angle (degrees)':<26}" + "".join(f"{v:>9.2f}" for v in angles.values()),
+            f"  {'leakage of the lift':<26}" + "".join(f"{v:>9.4f}" for v in leak.values()),
+        ])
+
+
+def stability(estimator, X, y, n_boot: int = 200, random_state=None, n_jobs=None,
+              progress: bool = True) -> SubspaceStability:
+    """Refit on bootstrap resamples and compare each subspace with the full-data one.
+
+    Parameters
+    ----------
+    estimator : subspace estimator or DirectionLift
+        Fitted or not (an unfitted one is fitted on ``(X, y)`` first). For a
+        ``DirectionLift`` the resamples are standardised with the full-data
+        mean and scale, so every subspace lives in the lift's coordinates;
+        its ``lift_`` is the lift whose leakage is measured. For a bare
+        estimator the lift is ``LiftMatrix.from_subspace(basis_)``.
+        Bootstrap fits use the full-data dimension ``dim_``.
+    X : array-like of shape (n_samples, n_features)
+    y : array-like of shape (n_samples,)
+    n_boot : int >= 2, default 200
+    random_state : int, RandomState or None
+        Seeds are drawn once up front, so results do not depend on ``n_jobs``.
+    n_jobs : int or None
+        Parallel workers (joblib).
+    progress : bool, default True
+        A progress line on stderr, shown only when stderr is a terminal.
+
+    Returns
+    -------
+    SubspaceStability
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from splitlift import SlicedInverse, stability
+    >>> rng = np.random.default_rng(0)
+    >>> X = rng.standard_normal((300, 4))
+    >>> y = X[:, 0] + 0.1 * rng.standard_normal(300)
+    >>> result = stability(SlicedInverse(dim=1), X, y, n_boot=20, random_state=0)
+    >>> result.angles.shape, bool(result.largest_angle_quantiles()["q95"] < 10)
+    ((20, 1), True)
+    """
+    if isinstance(n_boot, bool) or not isinstance(n_boot, Integral) or n_boot < 2:
+        raise ValueError(f"n_boot must be an integer >= 2, got {n_boot!r}.")
+    X = np.asarray(X, dtype=float) if not hasattr(X, "iloc") else X.to_numpy(dtype=float)
+    y = np.asarray(y)
+    coordinates, inner, lift = _full_data_fit(estimator, X, y)
+    dim = inner.dim_
+    reference = inner.basis_
+    template = clone(inner).set_params(dim=dim) if dim else None
+    seeds = check_random_state(random_state).randint(0, 2**31 - 1, size=n_boot)
+
+    def one(seed):
+        rows = np.random.RandomState(seed).randint(0, X.shape[0], X.shape[0])
+        if template is None:
+            return None
+        try:
+            return clone(template).fit(coordinates[rows], y[rows]).basis_
+        except ValueError:
+            return None
+
+    show = progress and sys.stderr.isatty()
+    results = []
+    for count, basis in enumerate(
+        Parallel(n_jobs=n_jobs, return_as="generator")(delayed(one)(s) for s in seeds), 1
+    ):
+        results.append(basis)
+        if show:
+            sys.stderr.write(f"\rbootstrap {count}/{n_boot}")
+    if show:
+        sys.stderr.write("\n")
+    fitted = [b for b in results if b is not None] if dim else []
+    if dim and len(fitted) < n_boot / 2:
+        raise ValueError(
+            f"{n_boot - len(fitted)} of {n_boot} bootstrap fits failed; the estimator is too "
+            "fragile on resamples of this data (rare classes or tiny slices): use fewer slices."
+        )
+    if not dim:  # the zero subspace: every resample agrees trivially
+        return SubspaceStability(np.zeros((n_boot, 0)), np.ones(n_boot), 0, 0)
+    angles = np.array([geometry.principal_angles(reference, b) for b in fitted])
+    leakage = np.array([lift.leakage(b) for b in fitted])
+    return SubspaceStability(angles, leakage, dim, n_boot - len(fitted))
+
+
+def _full_data_fit(estimator, X, y):
+    """Coordinates for the resamples, the fitted subspace estimator and the lift."""
+    from .transformer import DirectionLift
+
+    if isinstance(estimator, DirectionLift):
+        if not hasattr(estimator, "lift_"):
+            estimator = clone(estimator).fit(X, y)
+        check_is_fitted(estimator, "lift_")
+        coordinates = (X - estimator.mean_) / estimator.scale_
+        return coordinates, estimator.estimator_, estimator.lift_
+    if not hasattr(estimator, "basis_"):
+        estimator = clone(estimator).fit(X, y)
+    lift = LiftMatrix.from_subspace(estimator.basis_)
+    return X, estimator, lift

@@ -1,0 +1,85 @@
+"""Bootstrap stability and the full diagnostic report."""
+
+import json
+
+import numpy as np
+import pytest
+
+import splitlift as sl
+from splitlift.datasets import make_kiln_problem
+
+
+def test_bootstrap_angles_shrink_as_n_grows():
+    # Root-n consistency of SIR (Li 1991): the median largest angle falls
+    # roughly like n^{-1/2}; from n = 400 to n = 6400 we ask for a halving.
+    medians = []
+    for n in (400, 6400):
+        problem = make_kiln_problem(n, random_state=3)
+        result = sl.stability(sl.SlicedInverse(dim=2), problem.X, problem.y,
+                              n_boot=40, random_state=0, progress=False)
+        medians.append(result.largest_angle_quantiles()["q50"])
+    assert medians[1] < 0.5 * medians[0]
+
+
+def test_stability_is_reproducible_and_independent_of_n_jobs():
+    problem = make_kiln_problem(600, random_state=4)
+    lift = sl.DirectionLift().fit(problem.X, problem.y)
+    first = sl.stability(lift, problem.X, problem.y, n_boot=12, random_state=5)
+    second = sl.stability(lift, problem.X, problem.y, n_boot=12, random_state=5, n_jobs=2)
+    np.testing.assert_array_equal(first.angles, second.angles)
+    np.testing.assert_array_equal(first.leakage, second.leakage)
+    assert first.angles.shape == (12, 2)
+    assert np.all(np.diff(first.angles, axis=1) <= 0)  # largest first
+    assert np.all((first.leakage >= 0.05 - 1e-12) & (first.leakage <= 1))
+
+
+def test_stability_fits_an_unfitted_estimator():
+    problem = make_kiln_problem(500, random_state=6)
+    result = sl.stability(sl.SlicedInverse(dim=1), problem.X, problem.y, n_boot=5,
+                          random_state=0)
+    assert result.n_boot == 5 and result.dim == 1
+
+
+@pytest.mark.parametrize("n_boot", [1, 0, 2.5])
+def test_stability_rejects_too_few_resamples(n_boot):
+    problem = make_kiln_problem(200)
+    with pytest.raises(ValueError, match="n_boot"):
+        sl.stability(sl.SlicedInverse(), problem.X, problem.y, n_boot=n_boot)
+
+
+def test_full_report_has_every_section_and_serialises():
+    problem = make_kiln_problem(1500, random_state=7)
+    lift = sl.DirectionLift(sl.SlicedInverse(dim="auto")).fit(problem.X, problem.y)
+    boot = sl.stability(lift, problem.X, problem.y, n_boot=20, random_state=0)
+    report = lift.report(reference=problem.true_basis, stability=boot)
+    text = str(report)
+    for needle in ("chosen by sequential chi-square", "dimension rule", "p_value",
+                   "bootstrap stability", "leakage to bootstraps", "lifetime scaling",
+                   "bound factor", "linearity condition", "Mardia skewness"):
+        assert needle in text
+    data = json.loads(json.dumps(report.to_dict()))
+    assert data["dim_test"]["chosen"] == 2
+    assert data["stability"]["n_boot"] == 20
+    # theory factors, from the closed forms with d = 12, s = 2, eps = 0.05
+    n, d, s, eps = 1500, 12, 2, 0.05
+    assert data["theory"]["lifetime_scaling"] == pytest.approx(
+        n ** (1 / (d + 2)) * eps ** (-(d - s) / (d + 2)))
+    assert data["theory"]["bound_factor"] == pytest.approx(eps ** (2 * (d - s) / (d + 2)))
+    assert data["theory"]["reaches_subspace_rate"] is (eps <= n ** (-1 / (s + 2)))
+    assert data["warnings"] == []
+
+
+def test_report_warns_when_inputs_are_far_from_elliptical():
+    generator = np.random.default_rng(8)
+    X = generator.exponential(size=(2000, 5))  # skewed: not elliptical
+    y = X[:, 0] + X[:, 1] ** 2
+    report = sl.DirectionLift().fit(X, y).report()
+    assert any("linearity condition" in note for note in report.warnings)
+    assert report.linearity["skewness_p_value"] < 1e-3
+
+
+def test_linearity_check_is_quiet_on_gaussian_inputs():
+    problem = make_kiln_problem(2000, random_state=9)
+    lift = sl.DirectionLift().fit(problem.X, problem.y)
+    assert not lift.linearity_.doubtful
+    assert lift.linearity_.curvature < 0.05
