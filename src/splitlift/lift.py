@@ -117,8 +117,19 @@ class LiftMatrix:
     def directions(self) -> np.ndarray:
         return self._matrix / self.weights[:, None]
 
+    def output_matrix(self) -> np.ndarray:
+        """The matrix :meth:`apply` multiplies by: ``matrix``, or its repeated form.
+
+        The repeated form (:meth:`repeated`) is used when the metadata says
+        ``weight_form = "repeat"`` (as a ``DirectionLift`` records it), with
+        ``n_columns`` from the metadata.
+        """
+        if self.metadata.get("weight_form") == "repeat":
+            return self.repeated(self.metadata.get("n_columns"))
+        return self._matrix
+
     def apply(self, X) -> np.ndarray:
-        """Lifted features ``((X - input_mean) / input_scale) @ matrix.T`` of new data.
+        """Lifted features ``((X - input_mean) / input_scale) @ output_matrix().T``.
 
         Parameters
         ----------
@@ -138,7 +149,34 @@ class LiftMatrix:
             data = data - self.input_mean
         if self.input_scale is not None:
             data = data / self.input_scale
-        return data @ self._matrix.T
+        return data @ self.output_matrix().T
+
+    def reference_in_lift_coordinates(self, reference) -> np.ndarray:
+        """Map a subspace given in input coordinates to the coordinates the matrix acts on.
+
+        With ``z = (x - mean) / scale``, ``B^T x = B^T mean + (scale ∘ B)^T z``,
+        so ``span(B)`` in input coordinates is ``span(diag(scale) B)`` in lift
+        coordinates (unchanged when the lift has no standardisation).
+
+        Parameters
+        ----------
+        reference : array-like of shape (n_features, k)
+
+        Returns
+        -------
+        ndarray of shape (n_features, k), orthonormal columns
+        """
+        basis = check_basis(reference, "reference", n_features=self.n_features)
+        if self.input_scale is None:
+            return basis
+        return check_basis(self.input_scale[:, None] * basis, "reference")
+
+    def with_metadata(self, **entries) -> LiftMatrix:
+        """A copy of the lift with ``entries`` added to its metadata."""
+        return LiftMatrix(self._matrix, feature_names=self.feature_names,
+                          subspace_basis=self.subspace_basis,
+                          metadata={**self.metadata, **entries},
+                          input_mean=self.input_mean, input_scale=self.input_scale)
 
     def rank(self) -> int:
         """Numerical rank of the matrix (relative singular-value tolerance 1e-10)."""

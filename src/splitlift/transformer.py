@@ -14,7 +14,6 @@ from sklearn.base import (
 from sklearn.utils._param_validation import HasMethods, Interval, StrOptions
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-from ._validation import check_basis
 from .estimators import SlicedInverse
 from .lift import LiftMatrix
 from .linearity import check_linearity
@@ -160,14 +159,12 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
             random_state=self.random_state,
             feature_names=None if names is None else list(names),
             metadata={"estimator": type(self.estimator_).__name__,
-                      "standardized": bool(self.standardize)},
+                      "standardized": bool(self.standardize),
+                      "weight_form": self.weight_form, "n_columns": self.n_columns},
             input_mean=self.mean_ if self.standardize else None,
             input_scale=self.scale_ if self.standardize else None,
         )
-        self.output_matrix_ = (
-            self.lift_.matrix if self.weight_form == "scale" else
-            self.lift_.repeated(self.n_columns)
-        )
+        self.output_matrix_ = self.lift_.output_matrix()
         self.n_samples_fit_ = X.shape[0]
         self.linearity_ = check_linearity(standardised, self.subspace_basis_)
         return self
@@ -200,9 +197,8 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
     def reference_in_lift_coordinates(self, reference) -> np.ndarray:
         """Map a subspace given in input coordinates to the lift's coordinates.
 
-        With ``z = (x - mean) / scale``, ``B^T x = B^T mean + (scale ∘ B)^T z``,
-        so ``span(B)`` in input coordinates is ``span(diag(scale) B)`` in the
-        coordinates the lift acts on.
+        See :meth:`LiftMatrix.reference_in_lift_coordinates`; the scales are
+        those of the standardisation (ones when ``standardize=False``).
 
         Parameters
         ----------
@@ -213,8 +209,35 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         ndarray of shape (n_features_in_, k), orthonormal columns
         """
         check_is_fitted(self, "lift_")
-        basis = check_basis(reference, "reference", n_features=self.n_features_in_)
-        return check_basis(self.scale_[:, None] * basis, "reference")
+        return self.lift_.reference_in_lift_coordinates(reference)
+
+    def save(self, path) -> None:
+        """Save the fitted lift for production use, atomically.
+
+        The file holds the matrix, the standardisation, the feature names,
+        the estimator and its settings, this lift's settings and the
+        diagnostic report; :meth:`LiftMatrix.load` reads it back and
+        :meth:`LiftMatrix.apply` reproduces :meth:`transform` exactly
+        (``weight_form="scale"``; the repeated form is rebuilt with
+        ``LiftMatrix.repeated(n_columns)``).
+
+        Parameters
+        ----------
+        path : str or Path
+        """
+        check_is_fitted(self, "lift_")
+        report = self.report()
+        settings = {k: _json_safe(v) for k, v in self.get_params(deep=False).items()
+                    if k != "estimator"}
+        self.lift_.with_metadata(
+            estimator=type(self.estimator_).__name__,
+            estimator_params={k: _json_safe(v)
+                              for k, v in self.estimator_.get_params(deep=False).items()},
+            lift_params=settings,
+            output_columns=int(self.output_matrix_.shape[0]),
+            diagnostics=report.to_dict(),
+            report_text=str(report),
+        ).save(path)
 
     def report(self, reference=None, stability=None):
         """Diagnostic report of the fitted lift.
@@ -295,3 +318,10 @@ class ApplyLift(TransformerMixin, BaseEstimator):
         check_is_fitted(self, "lift_")
         X = validate_data(self, X, dtype=float, reset=False)
         return self.lift_.apply(X)
+
+
+def _json_safe(value):
+    """A JSON-friendly form of a parameter value (its repr when not a plain scalar)."""
+    if value is None or isinstance(value, (bool, int, float, str)):
+        return value
+    return repr(value)
