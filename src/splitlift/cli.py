@@ -89,7 +89,7 @@ def _build_parser() -> argparse.ArgumentParser:
     report.add_argument("--reference", metavar="REF.npy")
 
     bench = commands.add_parser("bench", help="time splitlift against reference implementations")
-    bench.add_argument("--suite", choices=["speed", "all"], default="speed")
+    bench.add_argument("--suite", choices=["speed", "accuracy", "rate", "all"], default="speed")
     bench.add_argument("--quick", action="store_true", help="small sizes, finishes fast")
     bench.add_argument("--json", metavar="FILE", help="also write the results as JSON")
     return parser

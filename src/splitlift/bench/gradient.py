@@ -12,9 +12,8 @@ import tracemalloc
 
 import numpy as np
 
+from ..estimators import AverageDerivative, GradientOuterProduct
 from ..geometry import principal_angles
-from ._derivative import AverageDerivative
-from ._gradient import GradientOuterProduct
 
 
 def synthetic_index_data(n_samples: int, n_features: int, n_indices: int, seed: int = 0):

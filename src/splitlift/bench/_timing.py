@@ -1,0 +1,67 @@
+"""Timing helpers shared by the benchmark suites."""
+
+from __future__ import annotations
+
+import os
+import platform
+import sys
+import time
+import tracemalloc
+from collections.abc import Callable
+from datetime import datetime, timezone
+
+import numpy as np
+
+
+def best_time(function: Callable[[], object], repeats: int = 3) -> float:
+    """Best wall-clock time of ``repeats`` calls, in seconds."""
+    timings = []
+    for _ in range(repeats):
+        started = time.perf_counter()
+        function()
+        timings.append(time.perf_counter() - started)
+    return min(timings)
+
+
+def peak_memory(function: Callable[[], object]) -> int:
+    """Peak bytes allocated through Python's allocators (numpy included) while it runs."""
+    tracemalloc.start()
+    try:
+        function()
+        return tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+
+
+def machine_description() -> dict:
+    """Where and when a benchmark ran."""
+    try:
+        from threadpoolctl import threadpool_info
+
+        blas = [f"{p.get('internal_api')} {p.get('version')} ({p.get('num_threads')} threads)"
+                for p in threadpool_info() if p.get("user_api") == "blas"]
+    except ImportError:  # pragma: no cover - threadpoolctl comes with scikit-learn
+        blas = []
+    return {
+        "date": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        "python": sys.version.split()[0],
+        "numpy": np.__version__,
+        "platform": platform.platform(),
+        "processor": platform.processor() or platform.machine(),
+        "cpu_count": os.cpu_count(),
+        "blas": blas,
+    }
+
+
+def table(rows: list[dict], columns: list[tuple[str, str, str]]) -> str:
+    """A plain-text table: columns are (key, header, format spec)."""
+    widths = [max(len(header), 10) for _, header, _ in columns]
+    lines = ["  " + "".join(f"{h:>{w + 2}}" for (_, h, _), w in zip(columns, widths, strict=True))]
+    for row in rows:
+        cells = []
+        for (key, _, spec), width in zip(columns, widths, strict=True):
+            value = row.get(key)
+            text = "-" if value is None else format(value, spec)
+            cells.append(f"{text:>{width + 2}}")
+        lines.append("  " + "".join(cells))
+    return "\n".join(lines)

@@ -1,0 +1,93 @@
+"""Speed suite: splitlift against reference implementations, timed in one run."""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+
+from ..estimators import HessianDirections, SlicedAverageVariance, SlicedInverse
+from ._timing import best_time, peak_memory, table
+
+
+def moment_methods(n_samples: int = 1_000_000, n_features: int = 20, repeats: int = 3) -> dict:
+    """SIR, SAVE and pHd against statsmodels' ``regression.dimred`` and one ``X.T @ X``.
+
+    Same data, same slicing (``n_slices = 10``, statsmodels' ``slice_n = n / 10``),
+    best of ``repeats``. Peak memory is the tracemalloc peak during our fit
+    divided by the size of X.
+    """
+    from statsmodels.regression.dimred import SAVE, PrincipalHessianDirections, SlicedInverseReg
+
+    generator = np.random.default_rng(0)
+    X = generator.standard_normal((n_samples, n_features))
+    y = X[:, 0] / (0.5 + (X[:, 1] + 1.5) ** 2) + 0.1 * generator.standard_normal(n_samples)
+    per_slice = n_samples // 10
+    product = best_time(lambda: X.T @ X, repeats)
+    cases = [
+        ("SIR", SlicedInverse(n_slices=10), lambda: SlicedInverseReg(y, X).fit(slice_n=per_slice)),
+        ("SAVE", SlicedAverageVariance(n_slices=10), lambda: SAVE(y, X).fit(slice_n=per_slice)),
+        ("pHd", HessianDirections(), lambda: PrincipalHessianDirections(y, X).fit()),
+    ]
+    rows = []
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for name, estimator, reference in cases:
+            ours = best_time(lambda estimator=estimator: estimator.fit(X, y), repeats)
+            theirs = best_time(reference, repeats)
+            memory = peak_memory(lambda estimator=estimator: estimator.fit(X, y))
+            rows.append({
+                "method": name, "splitlift_s": ours, "statsmodels_s": theirs, "xtx_s": product,
+                "speedup_vs_statsmodels": theirs / ours, "ratio_to_xtx": ours / product,
+                "peak_memory_over_X": memory / X.nbytes,
+            })
+    return {"n_samples": n_samples, "n_features": n_features, "rows": rows}
+
+
+def gradient_scaling(sizes=(10_000, 30_000, 100_000), n_features: int = 20, dim: int = 3) -> dict:
+    """OPG with its defaults as n grows: time, peak memory, largest angle to the truth."""
+    from .gradient import _measure, synthetic_index_data
+    from ..estimators import GradientOuterProduct
+
+    rows = []
+    for n in sizes:
+        X, y, basis = synthetic_index_data(n, n_features, dim, 0)
+        rows.append(_measure(GradientOuterProduct(dim=dim, random_state=0), X, y, basis))
+    return {"rows": rows}
+
+
+def forest_speed(n_samples: int = 20_000, n_features: int = 10, n_trees: int = 100) -> dict:
+    """The STIT forest against ``ExtraTreesRegressor(max_features=1)``, same trees and data."""
+    from .forest import benchmark_forest
+
+    return benchmark_forest(n_samples, n_features, n_trees, random_state=0)
+
+
+def run_speed(quick: bool, out) -> dict:
+    results = {}
+    n = 100_000 if quick else 1_000_000
+    results["moment_methods"] = moment_methods(n, 20, 2 if quick else 3)
+    out.write(f"\nmoment methods, n = {n}, d = 20 (best of repeats, seconds)\n")
+    out.write(table(results["moment_methods"]["rows"], [
+        ("method", "method", "s"), ("splitlift_s", "splitlift", ".3f"),
+        ("statsmodels_s", "statsmodels", ".3f"), ("xtx_s", "X.T@X", ".3f"),
+        ("speedup_vs_statsmodels", "speed-up", ".1f"), ("ratio_to_xtx", "x X.T@X", ".1f"),
+        ("peak_memory_over_X", "peak/X", ".2f")]) + "\n")
+    sizes = (5_000, 20_000) if quick else (10_000, 30_000, 100_000)
+    results["gradient_scaling"] = gradient_scaling(sizes)
+    out.write("\nouter product of gradients with its defaults, d = 20, dim 3\n")
+    out.write(table(results["gradient_scaling"]["rows"], [
+        ("n_samples", "n", "d"), ("seconds", "seconds", ".2f"),
+        ("largest_angle_degrees", "angle (deg)", ".2f"),
+        ("peak_memory_mb", "peak MB", ".1f"), ("data_memory_mb", "X MB", ".1f")]) + "\n")
+    forest = forest_speed(5_000 if quick else 20_000, 10, 50 if quick else 100)
+    results["forest"] = forest
+    out.write(f"\nSTIT forest (axis lift, full growth) vs ExtraTreesRegressor(max_features=1), "
+              f"n = {forest['n_samples']}, d = {forest['n_features']}, "
+              f"{forest['n_trees']} trees\n")
+    out.write(table([forest], [
+        ("stit_fit_seconds", "STIT fit", ".2f"), ("reference_fit_seconds", "ET fit", ".2f"),
+        ("fit_ratio", "fit ratio", ".2f"), ("stit_predict_seconds", "STIT pred", ".2f"),
+        ("reference_predict_seconds", "ET pred", ".2f"),
+        ("predict_ratio", "pred ratio", ".2f")]) + "\n")
+    return results
