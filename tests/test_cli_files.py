@@ -110,3 +110,33 @@ def test_non_numeric_feature_and_bad_options(data_file, tmp_path):
     assert result.returncode == 2 and not out.exists()
     result = run("fit", str(tmp_path / "absent.csv"), "--target", "strength", "--out", str(out))
     assert result.returncode == 1 and "does not exist" in result.stderr
+
+
+def test_score_command_ranks_candidates_and_flags_bad_ones(data_file, tmp_path):
+    path, _, problem = data_file
+    d = len(problem.feature_names)
+    truth, axis, broken = tmp_path / "truth.npz", tmp_path / "axis.npy", tmp_path / "flat.csv"
+    sl.LiftMatrix.from_subspace(problem.true_basis).save(truth)
+    np.save(axis, np.eye(d))
+    np.savetxt(broken, np.ones((3, d)), delimiter=",")  # rank 1 < d
+    reference, table_path, chart = tmp_path / "ref.npy", tmp_path / "rank.csv", tmp_path / "r.png"
+    np.save(reference, problem.true_basis)
+    result = run("score", str(truth), str(axis), str(broken), "--data", str(path),
+                 "--target", "strength", "--reference", str(reference), "--out", str(table_path),
+                 "--plot", str(chart))
+    assert result.returncode == 0, result.stderr
+    ranking = pd.read_csv(table_path)
+    assert ranking["name"].iloc[0] == str(truth)  # candidates are named by their paths
+    flat = ranking[ranking["name"] == str(broken)].iloc[0]
+    assert not flat["valid"] and "rank" in flat["reason"]
+    assert chart.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_fit_writes_plots(data_file, tmp_path):
+    path, _, _ = data_file
+    folder = tmp_path / "plots"
+    result = run("fit", str(path), "--target", "strength", "--out", str(tmp_path / "lift.npz"),
+                 "--plot", str(folder))
+    assert result.returncode == 0, result.stderr
+    pictures = sorted(p.name for p in folder.iterdir())
+    assert "eigenvalues.png" in pictures and "sufficient_summary.png" in pictures

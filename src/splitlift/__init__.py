@@ -16,6 +16,7 @@ from .lift import LiftMatrix
 from .moments import CollinearityWarning
 from .persistence import LiftFileError
 from .report import LiftReport
+from .scoring import score_candidates
 from .stability import SubspaceStability, stability
 from .transformer import ApplyLift, DirectionLift
 
@@ -38,5 +39,6 @@ __all__ = [
     "orthonormal_complement",
     "principal_angles",
     "restricted_singular_value",
+    "score_candidates",
     "stability",
 ]

@@ -83,6 +83,8 @@ def _build_parser() -> argparse.ArgumentParser:
     score.add_argument("--reference", metavar="REF.npy",
                        help="columns spanning a known subspace (.npy or .csv)")
     score.add_argument("--out", required=True, metavar="TABLE.csv")
+    score.add_argument("--plot", metavar="FILE.png", help="also draw the ranking chart")
+    score.add_argument("--seed", type=int, default=0, help="seed of the folds and forests")
 
     report = commands.add_parser("report", help="print the diagnostics of a saved lift")
     report.add_argument("lift", metavar="LIFT.npz")
@@ -215,15 +217,24 @@ def _run_score(arguments) -> int:
     from .persistence import atomic_write
     from .scoring import score_candidates
 
-    _check_output_folder(arguments.out)
+    _check_output_folder(arguments.out, arguments.plot)
     table = read_table(arguments.data)
     X, y, _ = features_and_target(table, arguments.target, _feature_list(arguments.features))
     reference = None if arguments.reference is None else read_matrix(arguments.reference)
-    ranking = score_candidates(arguments.candidates, X, y, reference=reference)
+    ranking = score_candidates(arguments.candidates, X, y, reference=reference,
+                               random_state=arguments.seed)
     buffer = io.StringIO()
     ranking.to_csv(buffer, index=False)
     data = buffer.getvalue().encode("utf-8")
     atomic_write(arguments.out, lambda handle: handle.write(data))
+    if arguments.plot:
+        from .plots import plot_candidate_ranking
+
+        try:
+            plot_candidate_ranking(ranking, arguments.plot)
+        except BaseException:
+            Path(arguments.out).unlink(missing_ok=True)  # all or nothing
+            raise
     print(ranking.to_string(index=False))
     print(f"\nscore table written to {arguments.out}")
     return EXIT_OK

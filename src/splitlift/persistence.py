@@ -41,6 +41,10 @@ def atomic_write(path, write: Callable[[IO[bytes]], None]) -> Path:
         )
     descriptor, temporary = tempfile.mkstemp(prefix=f".{target.name}.", dir=folder)
     try:
+        # mkstemp makes the file private (0600); give it the usual permissions
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(temporary, 0o666 & ~umask)
         with os.fdopen(descriptor, "wb") as handle:
             write(handle)
             handle.flush()

@@ -46,8 +46,8 @@ def moment_methods(n_samples: int = 1_000_000, n_features: int = 20, repeats: in
 
 def gradient_scaling(sizes=(10_000, 30_000, 100_000), n_features: int = 20, dim: int = 3) -> dict:
     """OPG with its defaults as n grows: time, peak memory, largest angle to the truth."""
-    from .gradient import _measure, synthetic_index_data
     from ..estimators import GradientOuterProduct
+    from .gradient import _measure, synthetic_index_data
 
     rows = []
     for n in sizes:
