@@ -36,9 +36,14 @@ def test_usage_errors_exit_2_without_traceback():
     assert result.returncode == 2 and "Traceback" not in result.stderr
 
 
-def test_bench_quick_writes_json(tmp_path):
-    out = tmp_path / "bench.json"
-    result = run("bench", "--quick", "--json", str(out))
+def test_bench_quick_writes_json_and_markdown(tmp_path):
+    out, page = tmp_path / "bench.json", tmp_path / "bench.md"
+    result = run("bench", "--quick", "--json", str(out), "--markdown", str(page))
     assert result.returncode == 0, result.stderr
     data = json.loads(out.read_text())
-    assert {row["method"] for row in data["moment_methods"]["rows"]} == {"SIR", "SAVE", "pHd"}
+    rows = data["speed"]["moment_methods"]["rows"]
+    assert {row["method"] for row in rows} == {"SIR", "SAVE", "pHd"}
+    assert all(row["statsmodels_s"] > 0 and row["splitlift_s"] > 0 for row in rows)
+    text = page.read_text()
+    assert text.startswith("# Benchmarks") and "splitlift bench --suite speed --quick" in text
+    assert "moment methods" in text and "STIT forest" in text

@@ -11,6 +11,14 @@ from .estimators import (
     SlicedAverageVariance,
     SlicedInverse,
 )
+from .forest import (
+    StitForestClassifier,
+    StitForestRegressor,
+    StitTree,
+    leakage_threshold,
+    theory_lifetime,
+    theory_risk_rate,
+)
 from .geometry import leakage, orthonormal_complement, principal_angles, restricted_singular_value
 from .lift import LiftMatrix
 from .moments import CollinearityWarning
@@ -34,11 +42,17 @@ __all__ = [
     "LiftReport",
     "SlicedAverageVariance",
     "SlicedInverse",
+    "StitForestClassifier",
+    "StitForestRegressor",
+    "StitTree",
     "SubspaceStability",
     "leakage",
+    "leakage_threshold",
     "orthonormal_complement",
     "principal_angles",
     "restricted_singular_value",
     "score_candidates",
     "stability",
+    "theory_lifetime",
+    "theory_risk_rate",
 ]

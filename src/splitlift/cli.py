@@ -94,6 +94,8 @@ def _build_parser() -> argparse.ArgumentParser:
     bench.add_argument("--suite", choices=["speed", "accuracy", "rate", "all"], default="speed")
     bench.add_argument("--quick", action="store_true", help="small sizes, finishes fast")
     bench.add_argument("--json", metavar="FILE", help="also write the results as JSON")
+    bench.add_argument("--markdown", metavar="FILE",
+                       help="also write the tables as a Markdown page (docs/benchmarks.md)")
     return parser
 
 
@@ -268,7 +270,8 @@ def _run_report(arguments) -> int:
 def _run_bench(arguments) -> int:
     from .bench import run_bench
 
-    run_bench(arguments.suite, arguments.quick, arguments.json)
+    _check_output_folder(arguments.json, arguments.markdown)
+    run_bench(arguments.suite, arguments.quick, arguments.json, markdown_path=arguments.markdown)
     return EXIT_OK
 
 
