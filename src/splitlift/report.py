@@ -58,8 +58,8 @@ class LiftReport:
     theory: dict | None = None
     linearity: dict | None = None
     warnings: list[str] = field(default_factory=list)
-    _dim_test_text: str | None = field(default=None, repr=False)
-    _stability_text: str | None = field(default=None, repr=False)
+    _dim_test_text: str | None = field(default=None, init=False, repr=False)
+    _stability_text: str | None = field(default=None, init=False, repr=False)
 
     @classmethod
     def from_direction_lift(cls, lift, reference=None, stability=None) -> LiftReport:

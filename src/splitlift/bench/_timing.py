@@ -54,14 +54,15 @@ def machine_description() -> dict:
 
 
 def table(rows: list[dict], columns: list[tuple[str, str, str]]) -> str:
-    """A plain-text table: columns are (key, header, format spec)."""
-    widths = [max(len(header), 10) for _, header, _ in columns]
-    lines = ["  " + "".join(f"{h:>{w + 2}}" for (_, h, _), w in zip(columns, widths, strict=True))]
-    for row in rows:
-        cells = []
-        for (key, _, spec), width in zip(columns, widths, strict=True):
-            value = row.get(key)
-            text = "-" if value is None else format(value, spec)
-            cells.append(f"{text:>{width + 2}}")
-        lines.append("  " + "".join(cells))
-    return "\n".join(lines)
+    """A plain-text table: columns are (key, header, format spec); text columns left-aligned."""
+    cells = [[("-" if row.get(key) is None else format(row.get(key), spec))
+              for key, _, spec in columns] for row in rows]
+    widths = [max([len(header)] + [len(line[i]) for line in cells])
+              for i, (_, header, _) in enumerate(columns)]
+    left = [spec == "s" for _, _, spec in columns]
+
+    def render(values):
+        return "  " + "  ".join(f"{v:<{w}}" if is_text else f"{v:>{w}}"
+                                for v, w, is_text in zip(values, widths, left, strict=True))
+
+    return "\n".join([render([h for _, h, _ in columns])] + [render(line) for line in cells])

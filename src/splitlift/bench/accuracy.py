@@ -31,11 +31,14 @@ from .problems import BenchmarkProblem, accuracy_problems
 def estimators_for(problem: BenchmarkProblem) -> dict:
     """The subspace estimators compared, at the true dimension s."""
     s = problem.true_basis.shape[1]
+    # with two classes SIR and ADE can give one direction only (classes - 1)
+    within = 1 if problem.classification else s
     chosen = {
-        "SIR": SlicedInverse(dim=s),
+        "SIR": SlicedInverse(dim=within),
         "SAVE": SlicedAverageVariance(dim=s),
         "OPG": GradientOuterProduct(dim=s, random_state=0),
-        "ADE": AverageDerivative(dim=s, n_slices=max(5, s + 1)) if s > 1 else AverageDerivative(),
+        "ADE": (AverageDerivative(dim=within, n_slices=max(5, s + 1)) if within > 1
+                else AverageDerivative()),
     }
     if not problem.classification:
         chosen["pHd"] = HessianDirections(dim=s)

@@ -56,6 +56,39 @@ def gradient_scaling(sizes=(10_000, 30_000, 100_000), n_features: int = 20, dim:
     return {"rows": rows}
 
 
+def average_derivative_memory(n_samples: int = 20_000, n_features: int = 20) -> dict:
+    """Density-weighted ADE (pairwise U-statistic in chunks): time and peak memory."""
+    from ..estimators import AverageDerivative
+    from .gradient import _measure, synthetic_index_data
+
+    X, y, basis = synthetic_index_data(n_samples, n_features, 1, 0)
+    return _measure(AverageDerivative(dim=1), X, y, basis)
+
+
+def dimension_and_stability(n_samples: int = 10_000, n_features: int = 20,
+                            n_boot: int = 200) -> dict:
+    """Time of ``dim="auto"`` (default rule) and of ``stability(n_boot)`` for SIR and OPG."""
+    import time
+
+    from ..estimators import GradientOuterProduct
+    from ..stability import stability
+    from .gradient import synthetic_index_data
+
+    X, y, _ = synthetic_index_data(n_samples, n_features, 2, 0)
+    rows = []
+    for name, estimator in (("SIR", SlicedInverse(dim="auto")),
+                            ("OPG", GradientOuterProduct(dim="auto", random_state=0))):
+        started = time.perf_counter()
+        estimator.fit(X, y)
+        auto = time.perf_counter() - started
+        started = time.perf_counter()
+        stability(estimator, X, y, n_boot=n_boot, random_state=0, progress=False)
+        boot = time.perf_counter() - started
+        rows.append({"method": name, "rule": estimator.dim_test_.rule, "dim": estimator.dim_,
+                     "auto_seconds": auto, "stability_seconds": boot, "n_boot": n_boot})
+    return {"n_samples": n_samples, "n_features": n_features, "rows": rows}
+
+
 def forest_speed(n_samples: int = 20_000, n_features: int = 10, n_trees: int = 100) -> dict:
     """The STIT forest against ``ExtraTreesRegressor(max_features=1)``, same trees and data."""
     from .forest import benchmark_forest
@@ -80,6 +113,18 @@ def run_speed(quick: bool, out) -> dict:
         ("n_samples", "n", "d"), ("seconds", "seconds", ".2f"),
         ("largest_angle_degrees", "angle (deg)", ".2f"),
         ("peak_memory_mb", "peak MB", ".1f"), ("data_memory_mb", "X MB", ".1f")]) + "\n")
+    ade = average_derivative_memory(5_000 if quick else 20_000)
+    results["average_derivative"] = ade
+    out.write(f"\ndensity-weighted average derivative, n = {ade['n_samples']}, d = 20: "
+              f"{ade['seconds']:.2f} s, peak {ade['peak_memory_mb']:.1f} MB "
+              f"(X {ade['data_memory_mb']:.1f} MB), angle {ade['largest_angle_degrees']:.2f} deg\n")
+    auto = dimension_and_stability(2_000 if quick else 10_000, 20, 50 if quick else 200)
+    results["dimension_and_stability"] = auto
+    out.write(f"\ndim='auto' and stability, n = {auto['n_samples']}, d = 20\n")
+    out.write(table(auto["rows"], [
+        ("method", "method", "s"), ("rule", "default rule", "s"), ("dim", "dim", "d"),
+        ("auto_seconds", "auto (s)", ".2f"), ("n_boot", "n_boot", "d"),
+        ("stability_seconds", "stability (s)", ".2f")]) + "\n")
     forest = forest_speed(5_000 if quick else 20_000, 10, 50 if quick else 100)
     results["forest"] = forest
     out.write(f"\nSTIT forest (axis lift, full growth) vs ExtraTreesRegressor(max_features=1), "
