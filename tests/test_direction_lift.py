@@ -5,6 +5,8 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from sklearn.ensemble import RandomForestRegressor
 from sklearn.model_selection import GridSearchCV
 from sklearn.pipeline import Pipeline
@@ -33,16 +35,22 @@ def test_without_standardisation_the_lift_acts_on_raw_inputs(problem):
     np.testing.assert_allclose(lift.transform(X), X @ lift.lift_.matrix.T, atol=1e-12)
 
 
-def test_estimated_subspace_is_equivariant_under_affine_maps(problem, rng):
-    # X' = X M + c has the subspace M^{-1} S (SIR is affine equivariant, Li 1991).
-    X, y, _ = problem
-    M = rng.standard_normal((6, 6)) + 3 * np.eye(6)
-    shift = rng.standard_normal(6) * 10
+@settings(max_examples=25, deadline=None)
+@given(st.integers(0, 2**31 - 1))
+def test_estimated_subspace_is_equivariant_under_affine_maps(seed):
+    # X' = X M + c has the subspace M^{-1} S: SIR, SAVE and pHd are affine
+    # equivariant (Li 1991; Cook & Weisberg 1991; Li 1992).
+    generator = np.random.default_rng(seed)
+    X, y, _ = li_rational_model(generator, 600, 5)
+    M = generator.standard_normal((5, 5)) + 3 * np.eye(5)
+    if np.linalg.cond(M) > 1e3:
+        return  # keep the check about equivariance, not about rounding
+    shift = generator.standard_normal(5) * 10
     for estimator in (sl.SlicedInverse(), sl.SlicedAverageVariance(), sl.HessianDirections()):
         plain = estimator.fit(X, y).basis_
         mapped = estimator.fit(X @ M + shift, y).basis_
         angles = sl.principal_angles(mapped, np.linalg.solve(M, plain))
-        assert angles.max() < 1e-8
+        assert angles.max() < 1e-7
 
 
 def test_pandas_feature_names_are_kept(problem):

@@ -168,7 +168,12 @@ def score_candidates(candidates, X=None, y=None, reference=None, estimator=None,
     References
     ----------
     O'Reilly, E. and Tran, N. M. (2024). Minimax rates for high-dimensional
-    random tessellation forests. Journal of Machine Learning Research 25.
+    random tessellation forests. Journal of Machine Learning Research 25(89),
+    1-32.
+
+    O'Reilly, E. (2024). Statistical advantages of oblique randomized decision
+    trees and forests. arXiv:2407.02458 (risk bounds in terms of the leakage
+    of the lift for ridge functions).
 
     Examples
     --------

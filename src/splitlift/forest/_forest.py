@@ -408,7 +408,12 @@ _SHARED_NOTES = """
     Mondrian trees and forests. Annals of Statistics 48, 2253-2276.
 
     O'Reilly, E. and Tran, N. M. (2024). Minimax rates for high-dimensional
-    random tessellation forests. Journal of Machine Learning Research 25.
+    random tessellation forests. Journal of Machine Learning Research 25(89),
+    1-32.
+
+    O'Reilly, E. (2024). Statistical advantages of oblique randomized decision
+    trees and forests. arXiv:2407.02458 (risk bounds in terms of the leakage
+    of the lift for ridge functions).
 """
 
 

@@ -108,6 +108,11 @@ def theory_lifetime(
     bounded below. The lifetime is in the units of a lift normalised to
     ``Σ_i ‖a_i‖ = 1`` on a unit-size domain.
 
+    References
+    ----------
+    O'Reilly, E. (2024). Statistical advantages of oblique randomized decision
+    trees and forests. arXiv:2407.02458.
+
     Examples
     --------
     >>> round(theory_lifetime(10_000, 8, 2, 0.01), 3)
