@@ -29,6 +29,23 @@ def orthonormal_complement(basis: np.ndarray) -> np.ndarray:
     return full[:, k:d]
 
 
+def random_rotation(dim: int, generator) -> np.ndarray:
+    """A Haar-distributed orthogonal (dim, dim) matrix (QR of a Gaussian, signs fixed).
+
+    ``generator`` is a numpy ``Generator`` or ``RandomState``; fixing the signs
+    of R's diagonal makes the distribution exactly Haar (Mezzadri 2007).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> Q = random_rotation(3, np.random.default_rng(0))
+    >>> bool(np.allclose(Q @ Q.T, np.eye(3)))
+    True
+    """
+    q, r = np.linalg.qr(generator.standard_normal((dim, dim)))
+    return q * np.sign(np.diag(r))
+
+
 def principal_angles(U, V) -> np.ndarray:
     """Principal angles between ``span(U)`` and ``span(V)``, in radians, largest first.
 

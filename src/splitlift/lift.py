@@ -314,7 +314,8 @@ class LiftMatrix:
             )
         coefficients = spread_directions(s, int(count))
         if random_state is not None and s > 1:
-            coefficients = coefficients @ _random_rotation(s, random_state)
+            coefficients = coefficients @ geometry.random_rotation(
+                s, check_random_state(random_state))
         weights = _eigenvalue_weights(coefficients, eigenvalues, weight_power, s)
         inside_share = 1.0 if s == d else 1.0 - complement_weight
         inside = (weights / weights.sum() * inside_share)[:, None] * (coefficients @ orthonormal.T)
@@ -413,12 +414,6 @@ def _repel_lines(points: np.ndarray, n_steps: int = 200, power: int = 8) -> np.n
         points = points - 0.1 * force / max(1.0, np.abs(force).max())
         points /= np.linalg.norm(points, axis=1, keepdims=True)
     return points
-
-
-def _random_rotation(dim: int, random_state) -> np.ndarray:
-    generator = check_random_state(random_state)
-    q, r = np.linalg.qr(generator.standard_normal((dim, dim)))
-    return q * np.sign(np.diag(r))
 
 
 def _eigenvalue_weights(coefficients, eigenvalues, weight_power, dim) -> np.ndarray:

@@ -8,19 +8,18 @@ exception, so one broken candidate cannot stop a batch.
 from __future__ import annotations
 
 import csv
-import sys
 from collections.abc import Mapping
 from dataclasses import dataclass
 from numbers import Integral
 from pathlib import Path
 
 import numpy as np
-from joblib import Parallel, delayed
 from sklearn.base import clone, is_classifier
 from sklearn.model_selection import KFold, StratifiedKFold
 from sklearn.utils import check_random_state
 
 from . import geometry
+from ._progress import parallel_map
 from ._validation import check_basis, check_finite_matrix, check_sample_count
 from .lift import _RANK_TOLERANCE, LiftMatrix
 from .moments import _is_discrete
@@ -195,17 +194,8 @@ def score_candidates(candidates, X=None, y=None, reference=None, estimator=None,
     named = _named_candidates(candidates)
     context, info = _build_context(X, y, reference, estimator, forest, cv, random_state)
 
-    show = progress and sys.stderr.isatty()
-    rows = []
-    jobs = Parallel(n_jobs=n_jobs, return_as="generator")(
-        delayed(_score_one)(name, item, context) for name, item in named
-    )
-    for count, row in enumerate(jobs, 1):
-        rows.append(row)
-        if show:
-            sys.stderr.write(f"\rscoring candidates {count}/{len(named)}")
-    if show:
-        sys.stderr.write("\n")
+    rows = parallel_map(lambda pair: _score_one(*pair, context), named, len(named),
+                        "scoring candidates", n_jobs, progress)
 
     table = pandas.DataFrame(rows, columns=list(COLUMNS))
     table["n_directions"] = table["n_directions"].astype("Int64")

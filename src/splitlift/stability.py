@@ -2,17 +2,16 @@
 
 from __future__ import annotations
 
-import sys
 from dataclasses import dataclass
 from numbers import Integral
 
 import numpy as np
-from joblib import Parallel, delayed
 from sklearn.base import clone
 from sklearn.utils import check_random_state
 from sklearn.utils.validation import check_is_fitted
 
 from . import geometry
+from ._progress import parallel_map
 from .lift import LiftMatrix
 
 QUANTILES = (0.05, 0.25, 0.5, 0.75, 0.95)
@@ -130,16 +129,7 @@ def stability(estimator, X, y, n_boot: int = 200, random_state=None, n_jobs=None
         except ValueError:
             return None
 
-    show = progress and sys.stderr.isatty()
-    results = []
-    for count, basis in enumerate(
-        Parallel(n_jobs=n_jobs, return_as="generator")(delayed(one)(s) for s in seeds), 1
-    ):
-        results.append(basis)
-        if show:
-            sys.stderr.write(f"\rbootstrap {count}/{n_boot}")
-    if show:
-        sys.stderr.write("\n")
+    results = parallel_map(one, seeds, n_boot, "bootstrap", n_jobs, progress)
     fitted = [b for b in results if b is not None] if dim else []
     if dim and len(fitted) < n_boot / 2:
         raise ValueError(

@@ -15,20 +15,27 @@ import numpy as np
 
 def best_time(function: Callable[[], object], repeats: int = 3) -> float:
     """Best wall-clock time of ``repeats`` calls, in seconds."""
-    timings = []
-    for _ in range(repeats):
-        started = time.perf_counter()
-        function()
-        timings.append(time.perf_counter() - started)
-    return min(timings)
+    return min(timed(function)[0] for _ in range(repeats))
+
+
+def timed(function: Callable[[], object]) -> tuple[float, object]:
+    """Wall-clock seconds of one call, and its result."""
+    started = time.perf_counter()
+    result = function()
+    return time.perf_counter() - started, result
 
 
 def peak_memory(function: Callable[[], object]) -> int:
     """Peak bytes allocated through Python's allocators (numpy included) while it runs."""
+    return timed_with_memory(function)[1]
+
+
+def timed_with_memory(function: Callable[[], object]) -> tuple[float, int]:
+    """Seconds and tracemalloc peak bytes of one call (the timing includes tracing)."""
     tracemalloc.start()
     try:
-        function()
-        return tracemalloc.get_traced_memory()[1]
+        seconds, _ = timed(function)
+        return seconds, tracemalloc.get_traced_memory()[1]
     finally:
         tracemalloc.stop()
 

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import time
 import warnings
 
 import numpy as np
@@ -24,7 +23,7 @@ from ..forest import StitForestClassifier, StitForestRegressor
 from ..geometry import principal_angles
 from ..lift import LiftMatrix
 from ..transformer import DirectionLift
-from ._timing import table
+from ._timing import table, timed
 from .problems import BenchmarkProblem, accuracy_problems
 
 
@@ -94,9 +93,7 @@ def evaluate(problem: BenchmarkProblem, n_trees: int, stit_trees: int) -> dict:
         StandardScaler(), clone(stit).set_params(lift=true_lift))
     errors, seconds = {}, {}
     for name, model in models.items():
-        started = time.perf_counter()
-        errors[name] = _error(model, problem)
-        seconds[name] = time.perf_counter() - started
+        seconds[name], errors[name] = timed(lambda model=model: _error(model, problem))
     return {"problem": problem.name, "classification": problem.classification,
             "noise_variance": problem.noise_variance, "errors": errors, "seconds": seconds,
             "largest_angle_degrees": angles}

@@ -2,19 +2,12 @@
 
 from __future__ import annotations
 
-import time
-
 import numpy as np
 from sklearn.ensemble import ExtraTreesRegressor
 from sklearn.utils import check_random_state
 
 from ..forest import StitForestRegressor
-
-
-def _timed(function) -> tuple[float, object]:
-    start = time.perf_counter()
-    result = function()
-    return time.perf_counter() - start, result
+from ._timing import timed
 
 
 def benchmark_forest(
@@ -57,10 +50,10 @@ def benchmark_forest(
     reference = ExtraTreesRegressor(
         n_estimators=n_trees, max_features=1, random_state=0, n_jobs=n_jobs
     )
-    stit_fit, _ = _timed(lambda: stit.fit(X, y))
-    stit_predict, _ = _timed(lambda: stit.predict(X))
-    reference_fit, _ = _timed(lambda: reference.fit(X, y))
-    reference_predict, _ = _timed(lambda: reference.predict(X))
+    stit_fit, _ = timed(lambda: stit.fit(X, y))
+    stit_predict, _ = timed(lambda: stit.predict(X))
+    reference_fit, _ = timed(lambda: reference.fit(X, y))
+    reference_predict, _ = timed(lambda: reference.predict(X))
     return {
         "n_samples": n_samples,
         "n_features": n_features,

@@ -7,13 +7,11 @@ memory. Meant for ``splitlift bench``, not for the timed test suite.
 
 from __future__ import annotations
 
-import time
-import tracemalloc
-
 import numpy as np
 
 from ..estimators import AverageDerivative, GradientOuterProduct
 from ..geometry import principal_angles
+from ._timing import timed_with_memory
 
 
 def synthetic_index_data(n_samples: int, n_features: int, n_indices: int, seed: int = 0):
@@ -44,12 +42,7 @@ def synthetic_index_data(n_samples: int, n_features: int, n_indices: int, seed: 
 
 
 def _measure(estimator, X, y, basis) -> dict:
-    tracemalloc.start()
-    start = time.perf_counter()
-    estimator.fit(X, y)
-    seconds = time.perf_counter() - start
-    peak = tracemalloc.get_traced_memory()[1]
-    tracemalloc.stop()
+    seconds, peak = timed_with_memory(lambda: estimator.fit(X, y))
     return {
         "n_samples": int(X.shape[0]),
         "n_features": int(X.shape[1]),

@@ -6,6 +6,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..geometry import random_rotation
+
 
 @dataclass
 class BenchmarkProblem:
@@ -21,11 +23,6 @@ class BenchmarkProblem:
     noise_variance: float = 0.0
 
 
-def _random_rotation(d: int, generator) -> np.ndarray:
-    q, r = np.linalg.qr(generator.standard_normal((d, d)))
-    return q * np.sign(np.diag(r))
-
-
 def friedman1_rotated(n_train, n_test, n_features, seed=0) -> BenchmarkProblem:
     """Friedman #1 (Friedman 1991) on U[0,1]^d, observed through a random rotation.
 
@@ -33,7 +30,7 @@ def friedman1_rotated(n_train, n_test, n_features, seed=0) -> BenchmarkProblem:
     ``u = Q x``; the relevant subspace is spanned by the first five rows of Q.
     """
     generator = np.random.default_rng(seed)
-    rotation = _random_rotation(n_features, generator)
+    rotation = random_rotation(n_features, generator)
     n = n_train + n_test
     u = generator.uniform(size=(n, n_features))
     y = (10 * np.sin(np.pi * u[:, 0] * u[:, 1]) + 20 * (u[:, 2] - 0.5) ** 2 + 10 * u[:, 3]

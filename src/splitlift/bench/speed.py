@@ -7,7 +7,7 @@ import warnings
 import numpy as np
 
 from ..estimators import HessianDirections, SlicedAverageVariance, SlicedInverse
-from ._timing import best_time, peak_memory, table
+from ._timing import best_time, peak_memory, table, timed
 
 
 def moment_methods(n_samples: int = 1_000_000, n_features: int = 20, repeats: int = 3) -> dict:
@@ -68,8 +68,6 @@ def average_derivative_memory(n_samples: int = 20_000, n_features: int = 20) -> 
 def dimension_and_stability(n_samples: int = 10_000, n_features: int = 20,
                             n_boot: int = 200) -> dict:
     """Time of ``dim="auto"`` (default rule) and of ``stability(n_boot)`` for SIR and OPG."""
-    import time
-
     from ..estimators import GradientOuterProduct
     from ..stability import stability
     from .gradient import synthetic_index_data
@@ -78,12 +76,9 @@ def dimension_and_stability(n_samples: int = 10_000, n_features: int = 20,
     rows = []
     for name, estimator in (("SIR", SlicedInverse(dim="auto")),
                             ("OPG", GradientOuterProduct(dim="auto", random_state=0))):
-        started = time.perf_counter()
-        estimator.fit(X, y)
-        auto = time.perf_counter() - started
-        started = time.perf_counter()
-        stability(estimator, X, y, n_boot=n_boot, random_state=0, progress=False)
-        boot = time.perf_counter() - started
+        auto, _ = timed(lambda estimator=estimator: estimator.fit(X, y))
+        boot, _ = timed(lambda estimator=estimator: stability(
+            estimator, X, y, n_boot=n_boot, random_state=0, progress=False))
         rows.append({"method": name, "rule": estimator.dim_test_.rule, "dim": estimator.dim_,
                      "auto_seconds": auto, "stability_seconds": boot, "n_boot": n_boot})
     return {"n_samples": n_samples, "n_features": n_features, "rows": rows}
