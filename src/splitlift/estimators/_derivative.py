@@ -71,6 +71,10 @@ class AverageDerivative(SubspaceEstimator):
         density that are left out of the average, where the estimated score
         is unreliable. Must lie in [0, 1). Ignored when
         ``density_weighted=True``.
+    random_state : int, RandomState instance or None, default None
+        Seeds the resampling of the ``dim="auto"`` rule (bootstrap,
+        permutations or folds) when the rule's own ``random_state`` is None,
+        so that one seed makes the whole fit reproducible.
 
     Attributes
     ----------
@@ -172,14 +176,17 @@ class AverageDerivative(SubspaceEstimator):
         "trim": [Interval(Real, 0, 1, closed="left")],
     }
 
+    _weights_rows_by_response = True
+
     def __init__(self, dim=1, dim_rule=None, bandwidth=None, density_weighted=True,
-                 n_slices=None, trim=0.05):
+                 n_slices=None, trim=0.05, random_state=None):
         self.dim = dim
         self.dim_rule = dim_rule
         self.bandwidth = bandwidth
         self.density_weighted = density_weighted
         self.n_slices = n_slices
         self.trim = trim
+        self.random_state = random_state
 
     def _eigen_decomposition(self, X, y):
         n = X.shape[0]
@@ -195,9 +202,16 @@ class AverageDerivative(SubspaceEstimator):
             derivatives = _density_weighted_derivatives(Z, responses, self.bandwidth_)
         else:
             derivatives = _kernel_score_derivatives(Z, responses, self.bandwidth_, self.trim)
+        _refuse_degenerate(derivatives, self.bandwidth_, n, Z.shape[1])
         # chain rule for z = W (x - mean): the input gradient is W^T times the sphered one
         self.average_derivatives_ = whitening.to_input(derivatives.T).T
-        return self._directions(self.average_derivatives_, proportions, available)
+        # decomposed in sphered coordinates, where it does not depend on column units
+        values, sphered_directions = self._directions(derivatives, proportions, available)
+        eigenvalues, directions = np.zeros(X.shape[1]), np.zeros((X.shape[1], X.shape[1]))
+        eigenvalues[:available] = values
+        directions[:, :available] = whitening.to_input(sphered_directions)
+        directions /= np.where((norms := np.linalg.norm(directions, axis=0)) > 0, norms, 1.0)
+        return eigenvalues, directions
 
     def _responses(self, y) -> tuple[np.ndarray, np.ndarray | None]:
         """Centred response columns and, when sliced, the slice proportions."""
@@ -230,6 +244,7 @@ class AverageDerivative(SubspaceEstimator):
 
     @staticmethod
     def _directions(derivatives, proportions, available):
+        """Leading ``available`` eigen-pairs of the derivatives' (scaled) outer product."""
         if proportions is None:
             matrix = np.outer(derivatives[0], derivatives[0])
         else:
@@ -240,12 +255,21 @@ class AverageDerivative(SubspaceEstimator):
         values, vectors = np.clip(values[order], 0.0, None), vectors[:, order]
         if proportions is None and vectors[:, 0] @ derivatives[0] < 0:
             vectors = -vectors
-        d = derivatives.shape[1]
-        eigenvalues = np.zeros(d)
-        eigenvalues[:available] = values
-        directions = np.zeros((d, d))
-        directions[:, :available] = vectors
-        return eigenvalues, directions
+        return values, vectors
+
+
+def _refuse_degenerate(derivatives: np.ndarray, bandwidth: float, n: int, p: int) -> None:
+    """Fail when every kernel weight underflowed, leaving no derivative to decompose."""
+    if np.all(np.isfinite(derivatives)) and np.any(derivatives != 0):
+        return
+    raise ValueError(
+        f"average derivative estimation is degenerate here: with n = {n} rows in {p} "
+        f"sphered dimensions the kernel weights at bandwidth {bandwidth:.3g} are all zero "
+        "or overflow, so the estimated average derivative is "
+        + ("not finite" if not np.all(np.isfinite(derivatives)) else "exactly zero")
+        + ". Pass a larger bandwidth (e.g. bandwidth=2.0), use fewer features, or use "
+        "another estimator (SlicedInverse or GradientOuterProduct)."
+    )
 
 
 def _pair_blocks(Z: np.ndarray, bandwidth: float) -> Iterator[tuple[slice, np.ndarray]]:
