@@ -13,11 +13,11 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 from .._validation import check_dim, check_sample_count
 from ..dimension import RULES, resolve_rule
 from ..moments import (
-    CONSTANT_TOLERANCE,
     CollinearityWarning,
     Whitening,
     _is_discrete,
     check_slice_sizes,
+    constant_columns,
     power_of_two_scale,
     slice_response,
 )
@@ -140,7 +140,8 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
 
         Columns whose largest entry is beyond ``2^±480`` are divided by a
         power of two (exact), so second moments neither overflow nor
-        underflow; the directions are mapped back (``β_x = β / scale``).
+        underflow; the directions are mapped back (``β_x = β / scale``, then
+        scaled to unit length).
         Fitted attributes such as ``whitening_`` then refer to the rescaled
         columns, ``column_scale_`` holds the factors (ones for ordinary data).
         """
@@ -156,8 +157,11 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
                 "another estimator (GradientOuterProduct sees most kinds of dependence) "
                 "or check the data."
             )
-        if rescaled:
+        if rescaled:  # then unit columns: squares of entries near 1e±300 would underflow
             directions = directions / self.column_scale_[:, None]
+            largest = np.max(np.abs(directions), axis=0)
+            directions = directions / np.where(largest > 0, largest, 1.0)
+            directions /= np.maximum(np.linalg.norm(directions, axis=0), 1.0)
         return eigenvalues, directions
 
     def _quality_warnings(self, X, y) -> list[str]:
@@ -194,10 +198,10 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
                     "separately, or treat y as class labels (pass it as strings)."
                 )
         if self._neighbourhoods_in_standardised_inputs and d > 1:
-            scale = X.std(axis=0)
-            varying = scale > CONSTANT_TOLERANCE * np.abs(X.mean(axis=0))
+            safe = X / self.column_scale_
+            varying = ~constant_columns(safe.mean(axis=0), safe.std(axis=0))
             if varying.sum() > 1:
-                values = np.linalg.eigvalsh(np.corrcoef(X[:, varying], rowvar=False))
+                values = np.linalg.eigvalsh(np.corrcoef(safe[:, varying], rowvar=False))
                 index = np.sqrt(values[-1] / max(values[0], np.finfo(float).tiny))
                 if index > CONDITION_INDEX_LIMIT:
                     reasons.append(
@@ -207,6 +211,7 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
                         "redundant columns first (e.g. PCA with whiten=True), or use a "
                         "moment method (SlicedInverse), which whitens itself."
                     )
+        reasons += self._method_warnings()
         for reason in reasons:
             warnings.warn(reason, EstimationWarning, stacklevel=3)
         return reasons
@@ -229,6 +234,10 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
     @property
     def _n_features_out(self) -> int:
         return self.dim_
+
+    def _method_warnings(self) -> list[str]:
+        """Method-specific reasons to doubt the fit, found by ``_eigen_decomposition``."""
+        return []
 
     def _eigen_decomposition(self, X, y):  # pragma: no cover - abstract
         raise NotImplementedError
