@@ -216,3 +216,52 @@ def test_ordinary_data_fit_without_warnings():
         warnings.simplefilter("error")
         for make in ESTIMATORS.values():
             assert make().fit(X, y).fit_warnings_ == []
+
+
+@settings(max_examples=200, deadline=None)
+@given(values=st.lists(st.floats(-1e6, 1e6, allow_nan=False), min_size=4, max_size=80,
+                       unique=True),
+       n_slices=st.integers(2, 8))
+def test_equal_count_slices_follow_array_split(values, n_slices):
+    # DESIGN.md: sort the response and split it as numpy.array_split would
+    # (numpy is the reference); distinct values, so no tie moves a boundary.
+    from splitlift.moments import slice_response
+
+    y = np.asarray(values)
+    if y.size < 2 * n_slices:
+        with pytest.raises(ValueError, match="too few for"):
+            slice_response(y, n_slices, "count")
+        return
+    slices = slice_response(y, n_slices, "count")
+    expected = np.empty(y.size, dtype=int)
+    for label, rows in enumerate(np.array_split(np.argsort(y), n_slices)):
+        expected[rows] = label
+    np.testing.assert_array_equal(slices.labels, expected)
+
+
+@settings(max_examples=150, deadline=None)
+@given(exponent=st.integers(-300, 300), seed=st.integers(0, 2**16))
+def test_direction_lift_gives_finite_output_for_finite_input_at_any_magnitude(exponent, seed):
+    rng = np.random.default_rng(seed)
+    X = rng.standard_normal((80, 3))
+    y = X[:, 0] + 0.1 * rng.standard_normal(80)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        lift = sl.DirectionLift(sl.SlicedInverse(dim=1, n_slices=4)).fit(X * 10.0**exponent, y)
+    assert np.all(np.isfinite(lift.transform(X * 10.0**exponent)))
+    # standardised inputs: the lifted features do not depend on the units
+    reference = sl.DirectionLift(sl.SlicedInverse(dim=1, n_slices=4)).fit(X, y).transform(X)
+    np.testing.assert_allclose(np.abs(lift.transform(X * 10.0**exponent)), np.abs(reference),
+                               rtol=1e-6, atol=1e-9)
+
+
+@settings(max_examples=60, deadline=None)
+@given(seed=st.integers(0, 2**31 - 1))
+def test_same_seed_same_lift(seed):
+    X, y, _ = SHARED_DATA[0]
+
+    def fitted():
+        return quiet_fit(sl.DirectionLift(sl.GradientOuterProduct(dim=2, n_anchors=60),
+                                          random_state=seed), X[:200], y[:200])
+
+    np.testing.assert_array_equal(fitted().transform(X), fitted().transform(X))
