@@ -239,6 +239,17 @@ class LadleEstimator(BaseEstimator):
         eigenvalues carry the units of y or of the gradients, so the raw
         criterion would depend on them. ``"auto"``: raw for SIR and SAVE,
         normalised otherwise.
+    resample : {"auto", "refit", "local"}, default "auto"
+        ``"refit"``: the published bootstrap, one full fit per replicate.
+        ``"local"``: for estimators built from one term per anchor or row
+        (OPG, ADE), redraw those terms from the fitted estimator instead of
+        refitting, so the rule costs about one fit in all. It reflects the
+        variation of the average over anchors or rows but not that of each
+        local fit, so it is an approximation; in the benchmark it chose the
+        same dimension as the published ladle on the test functions of
+        ``splitlift bench``. ``"auto"``: local above
+        :data:`LOCAL_RESAMPLING_MIN_ROWS` rows where the estimator offers it,
+        the published refit otherwise.
     random_state : int, RandomState or None, default None
 
     References
@@ -247,10 +258,12 @@ class LadleEstimator(BaseEstimator):
     eigenvectors for order determination. Biometrika 103, 875-887.
     """
 
-    def __init__(self, n_boot=50, max_dim=None, normalize="auto", random_state=None):
+    def __init__(self, n_boot=50, max_dim=None, normalize="auto", resample="auto",
+                 random_state=None):
         self.n_boot = n_boot
         self.max_dim = max_dim
         self.normalize = normalize
+        self.resample = resample
         self.random_state = random_state
 
     def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
@@ -258,14 +271,19 @@ class LadleEstimator(BaseEstimator):
         n, d = X.shape
         top = _largest_candidate(estimator, d, self.max_dim)
         generator = check_random_state(self.random_state)
-        full = _fixed_dim(estimator, top).fit(X, y)
+        if uses_local_resampling(self.resample, estimator, n):
+            # the fitted estimator redraws its own local terms: no refit at all
+            full, label = estimator, f"ladle ({n_boot} local resamples)"
+            replicates = (estimator._resampled_directions(generator) for _ in range(n_boot))
+        else:
+            full, label = _fixed_dim(estimator, top).fit(X, y), f"ladle ({n_boot} bootstrap fits)"
+            replicates = (_fixed_dim(estimator, top).fit(X[rows], y[rows]).directions_
+                          for rows in (generator.randint(0, n, n) for _ in range(n_boot)))
         full_bases = [np.linalg.qr(full.directions_[:, :k])[0] for k in range(1, top + 1)]
         variation = np.zeros(top + 1)
-        for _ in range(n_boot):
-            rows = generator.randint(0, n, n)
-            boot = _fixed_dim(estimator, top).fit(X[rows], y[rows])
+        for directions in replicates:
             for k in range(1, top + 1):
-                boot_basis = np.linalg.qr(boot.directions_[:, :k])[0]
+                boot_basis = np.linalg.qr(directions[:, :k])[0]
                 cosines = np.cos(geometry.principal_angles(full_bases[k - 1], boot_basis))
                 variation[k] += (1.0 - np.prod(cosines)) / n_boot
         eigen = np.abs(full.eigenvalues_)
@@ -280,7 +298,26 @@ class LadleEstimator(BaseEstimator):
         criterion = phi + f
         chosen = int(np.argmin(criterion))
         rows_out = [{"k": k, "criterion": float(criterion[k])} for k in range(top + 1)]
-        return chosen, DimensionTest(f"ladle ({n_boot} bootstrap fits)", chosen, rows_out)
+        return chosen, DimensionTest(label, chosen, rows_out)
+
+
+#: Rows above which ``resample="auto"`` redraws local terms instead of refitting.
+LOCAL_RESAMPLING_MIN_ROWS = 2000
+
+
+def uses_local_resampling(resample: str, estimator, n_samples: int) -> bool:
+    """Whether a resampling rule should redraw the estimator's local terms (see the ladle)."""
+    if resample not in ("auto", "refit", "local"):
+        raise ValueError(f"resample must be 'auto', 'refit' or 'local', got {resample!r}.")
+    offered = hasattr(estimator, "_resampled_directions")
+    if resample == "local" and not offered:
+        raise ValueError(
+            f"resample='local' needs an estimator built from local terms "
+            f"(GradientOuterProduct, AverageDerivative), not {type(estimator).__name__}; "
+            "use resample='refit'."
+        )
+    return offered and (resample == "local" or
+                        (resample == "auto" and n_samples > LOCAL_RESAMPLING_MIN_ROWS))
 
 
 class CrossValidatedDimension(BaseEstimator):

@@ -202,21 +202,41 @@ class AverageDerivative(SubspaceEstimator):
             rule_of_thumb_bandwidth(n, Z.shape[1]) if self.bandwidth is None else self.bandwidth
         )
         if self.density_weighted:
-            derivatives, neighbours = _density_weighted_derivatives(Z, responses, self.bandwidth_)
+            left, right, neighbours = _density_weighted_derivatives(Z, responses, self.bandwidth_)
         else:
-            derivatives, neighbours = _kernel_score_derivatives(Z, responses, self.bandwidth_,
+            left, right, neighbours = _kernel_score_derivatives(Z, responses, self.bandwidth_,
                                                                 self.trim)
+        derivatives = left.T @ right
         _refuse_degenerate(derivatives, neighbours, self.bandwidth_, n, Z.shape[1])
         self.effective_neighbours_ = neighbours
         # chain rule for z = W (x - mean): the input gradient is W^T times the sphered one
         self.average_derivatives_ = whitening.to_input(derivatives.T).T
-        # decomposed in sphered coordinates, where it does not depend on column units
-        values, sphered_directions = self._directions(derivatives, proportions, available)
-        eigenvalues, directions = np.zeros(X.shape[1]), np.zeros((X.shape[1], X.shape[1]))
-        eigenvalues[:available] = values
-        directions[:, :available] = whitening.to_input(sphered_directions)
-        directions /= np.where((norms := np.linalg.norm(directions, axis=0)) > 0, norms, 1.0)
-        return eigenvalues, directions
+        # kept for resampling rules, which reuse the kernel sums instead of refitting
+        self._row_factors, self._proportions, self._available = (left, right), proportions, \
+            available
+        return self._eigen_pairs(derivatives)
+
+    def _eigen_pairs(self, derivatives: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Decompose in sphered coordinates, where it does not depend on column units."""
+        values, sphered = self._directions(derivatives, self._proportions, self._available)
+        d = self.whitening_.matrix.shape[1]
+        eigenvalues, directions = np.zeros(d), np.zeros((d, d))
+        eigenvalues[: self._available] = values
+        directions[:, : self._available] = self.whitening_.to_input(sphered)
+        norms = np.linalg.norm(directions, axis=0)
+        return eigenvalues, directions / np.where(norms > 0, norms, 1.0)
+
+    def _resampled_directions(self, generator) -> np.ndarray:
+        """Directions from the rows' terms of the estimate drawn with replacement, no refit.
+
+        The estimate is a sum of one term per row; a replicate redraws the
+        rows of that sum and keeps each row's kernel sums over the full
+        sample, so it costs one small eigen-decomposition instead of a
+        quadratic refit (an approximation to the bootstrap of the U-statistic).
+        """
+        left, right = self._row_factors
+        picks = generator.randint(0, left.shape[0], left.shape[0])
+        return self._eigen_pairs(left[picks].T @ right[picks])[1]
 
     def _method_warnings(self) -> list[str]:
         if self.effective_neighbours_ >= FEW_NEIGHBOURS:
@@ -313,10 +333,12 @@ def _pair_blocks(Z: np.ndarray, bandwidth: float) -> Iterator[tuple[slice, np.nd
         yield rows, block
 
 
-def _density_weighted_derivatives(Z, responses, bandwidth) -> tuple[np.ndarray, float]:
-    """Powell-Stock-Stoker U-statistic for each response column, shape (q, p).
+def _density_weighted_derivatives(Z, responses, bandwidth):
+    """Powell-Stock-Stoker U-statistic for each response column, as row factors.
 
-    Also returns the mean number of effective neighbours ``Σ_{j≠i} K_ij``.
+    Returns ``(left, right, neighbours)``: the derivatives, shape (q, p), are
+    ``left.T @ right``, a sum of one term per row (which resampling rules
+    reuse), and ``neighbours`` is the mean of ``Σ_{j≠i} K_ij``.
     """
     n, p = Z.shape
     laplacian_product = np.zeros((n, responses.shape[1]))
@@ -328,13 +350,13 @@ def _density_weighted_derivatives(Z, responses, bandwidth) -> tuple[np.ndarray, 
         laplacian_product[rows] -= kernel @ responses
         neighbours += kernel.sum() - (rows.stop - rows.start)  # the self pairs weigh 1
     constant = (2 * np.pi) ** (-p / 2) * bandwidth ** (-(p + 2))
-    return (2 * constant / (n * (n - 1))) * (laplacian_product.T @ Z), max(neighbours / n, 0.0)
+    return (2 * constant / (n * (n - 1))) * laplacian_product, Z, max(neighbours / n, 0.0)
 
 
-def _kernel_score_derivatives(Z, responses, bandwidth, trim) -> tuple[np.ndarray, float]:
-    """Härdle-Stoker trimmed kernel-score average for each response column, shape (q, p).
+def _kernel_score_derivatives(Z, responses, bandwidth, trim):
+    """Härdle-Stoker trimmed kernel-score average for each response column, as row factors.
 
-    Also returns the mean number of effective neighbours ``Σ_{j≠i} K_ij``.
+    Returns ``(left, right, neighbours)`` as :func:`_density_weighted_derivatives`.
     """
     n = Z.shape[0]
     scores = np.empty_like(Z)
@@ -349,4 +371,4 @@ def _kernel_score_derivatives(Z, responses, bandwidth, trim) -> tuple[np.ndarray
         scores[rows] = (Z[rows] - (kernel @ Z) / totals[:, None]) / bandwidth**2
         log_density[rows] = np.log(totals) - 0.5 * nearest
     kept = log_density >= np.quantile(log_density, trim) if trim > 0 else np.ones(n, bool)
-    return responses[kept].T @ scores[kept] / n, float(np.mean(np.exp(log_density)))
+    return responses * (kept / n)[:, None], scores, float(np.mean(np.exp(log_density)))

@@ -202,22 +202,39 @@ class GradientOuterProduct(SubspaceEstimator):
         self.n_neighbors_ = self._neighbourhood_size(n, Z.shape[1])
         self.anchor_indices_ = self._anchors(n)
 
-        outer = self._outer_product(Z, Z, responses)
+        gradients = self._anchor_gradients(Z, Z, responses)
         for _ in range(self.refine):
-            values, vectors = _descending_eigh(outer)
+            values, vectors = _descending_eigh(_average_outer_product(gradients))
             # index values V^T z, sphered within the subspace
             index = Z @ vectors[:, : self.dim]
             sphered = Whitening.fit(index).transform(index)
-            outer = self._outer_product(sphered, Z, responses)
+            gradients = self._anchor_gradients(sphered, Z, responses)
 
+        # kept for resampling rules, which reuse the local fits instead of refitting
+        self._gradients, self._standardisation = gradients, standardisation
+        outer = _average_outer_product(gradients)
+        self.outer_product_ = standardisation.embed(standardisation.embed(outer).T).T
+        return self._eigen_pairs(outer)
+
+    def _eigen_pairs(self, outer: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         values, vectors = _descending_eigh(outer)
-        d, rank = X.shape[1], standardisation.rank
+        d, rank = self._standardisation.kept.size, self._standardisation.rank
         eigenvalues = np.zeros(d)
         eigenvalues[:rank] = values
         directions = np.zeros((d, d))
-        directions[:, :rank] = standardisation.directions_to_input(vectors)
-        self.outer_product_ = standardisation.embed(standardisation.embed(outer).T).T
+        directions[:, :rank] = self._standardisation.directions_to_input(vectors)
         return eigenvalues, directions
+
+    def _resampled_directions(self, generator) -> np.ndarray:
+        """Directions from the anchors' gradients drawn with replacement, without refitting.
+
+        Serves the fast resampling rules (``dim="auto"``, stability): the
+        neighbour graph and the local fits are reused, so a replicate costs
+        one (p, p) eigen-decomposition. It captures the variation of the
+        average over anchors, not that of the local fits themselves.
+        """
+        picks = generator.randint(0, self._gradients.shape[0], self._gradients.shape[0])
+        return self._eigen_pairs(_average_outer_product(self._gradients[picks]))[1]
 
     def _neighbourhood_size(self, n: int, p: int) -> int:
         if self.n_neighbors is None:
@@ -236,19 +253,23 @@ class GradientOuterProduct(SubspaceEstimator):
         rng = check_random_state(self.random_state)
         return np.sort(rng.choice(n, size=count, replace=False))
 
-    def _outer_product(self, metric_points, Z, responses) -> np.ndarray:
-        """Average outer product of local linear gradients, standardised coordinates."""
+    def _anchor_gradients(self, metric_points, Z, responses) -> np.ndarray:
+        """Local linear gradients at the anchors, standardised coordinates, shape (m, q, p)."""
         k = self.n_neighbors_
         chunk = chunk_size(k, max(Z.shape[1], responses.shape[1]))
-        total = np.zeros((Z.shape[1], Z.shape[1]))
+        blocks = []
         for rows, distances, indices in neighbourhoods(
             metric_points, self.anchor_indices_, k, chunk
         ):
             weights = gaussian_weights(distances, self.bandwidth)
-            gradients = local_linear_gradients(Z, responses, rows, indices, weights)
-            flat = gradients.reshape(-1, Z.shape[1])
-            total += flat.T @ flat
-        return total / self.anchor_indices_.size
+            blocks.append(local_linear_gradients(Z, responses, rows, indices, weights))
+        return np.concatenate(blocks)
+
+
+def _average_outer_product(gradients: np.ndarray) -> np.ndarray:
+    """``(1/m) Σ_i Σ_c b_ic b_ic^T`` over anchors i and response columns c."""
+    flat = gradients.reshape(-1, gradients.shape[-1])
+    return flat.T @ flat / gradients.shape[0]
 
 
 def _descending_eigh(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
