@@ -228,7 +228,7 @@ def test_equal_count_slices_follow_array_split(values, n_slices):
     from splitlift.moments import slice_response
 
     y = np.asarray(values)
-    if y.size < 2 * n_slices:
+    if y.size < n_slices:
         with pytest.raises(ValueError, match="too few for"):
             slice_response(y, n_slices, "count")
         return
