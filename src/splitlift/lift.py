@@ -33,10 +33,12 @@ class LiftMatrix:
     Parameters
     ----------
     matrix : array-like of shape (m, d)
-        Directions as rows; rescaled to unit total row norm. Zero rows are
-        refused.
+        Real directions as rows; rescaled to unit total row norm (safely at
+        any magnitude, entries near 1e300 or 1e-300 included). Zero rows,
+        complex entries and unit directions of rank below d are refused.
     feature_names : sequence of str, optional
-        Names of the d input columns the lift acts on.
+        Names of the d input columns the lift acts on, one per column and
+        unique (a bare string is refused, not split into letters).
     subspace_basis : array-like of shape (d, s), optional
         The subspace the lift was built around, kept for diagnostics.
     metadata : dict, optional
@@ -83,6 +85,12 @@ class LiftMatrix:
                                                             n_features=self.n_features)
         )
         self.metadata = check_metadata(metadata)
+        if self.metadata.get("weight_form", "scale") not in ("scale", "repeat"):
+            raise ValueError(
+                f"metadata weight_form must be 'scale' or 'repeat', got "
+                f"{self.metadata['weight_form']!r}."
+            )
+        self.output_matrix()  # a repeated form with a bad n_columns fails here, not at apply
         self.input_mean = _optional_vector(input_mean, "input_mean", self.n_features)
         self.input_scale = _optional_vector(input_scale, "input_scale", self.n_features)
         if self.input_scale is not None and np.any(self.input_scale <= 0):
@@ -377,7 +385,10 @@ class LiftMatrix:
                 input_scale=arrays.get("input_scale"),
             )
         except ValueError as error:
-            raise LiftFileError(f"{path}: invalid lift ({error})") from None
+            raise LiftFileError(
+                f"{path}: invalid lift ({error.args[0].rstrip('.')}); the file is damaged or "
+                "was edited by hand: save the lift again."
+            ) from None
 
     def __repr__(self) -> str:
         return f"LiftMatrix(n_directions={self.n_directions}, n_features={self.n_features})"
@@ -413,9 +424,9 @@ def lifted_features(X: np.ndarray, matrix: np.ndarray, input_mean=None,
     Examples
     --------
     >>> import numpy as np
-    >>> X = np.array([[1.5e308, 1.5e308]])
-    >>> lifted_features(X, np.array([[0.6, 0.6], [0.6, -0.6]])).tolist()
-    [[1.8e+308, 0.0]]
+    >>> X = np.full((1, 3), 1.5e308)  # the direct product overflows at 0.6 x + 0.6 x
+    >>> lifted_features(X, np.array([[0.6, 0.6, -0.5]])).tolist()
+    [[1.05e+308]]
     """
     with np.errstate(over="ignore", invalid="ignore"):
         data = X if input_mean is None else X - input_mean
@@ -556,13 +567,15 @@ def _eigenvalue_weights(coefficients, eigenvalues, weight_power, dim) -> np.ndar
     # |λ_k|^p relative to the largest, in logarithms: no |p| can overflow
     logs = weight_power * np.log(values)
     weights = (coefficients**2) @ np.exp(logs - logs.max())
-    if not np.all(weights >= np.finfo(float).tiny):
+    # below this relative weight the rows of a lift lose precision in the subnormal range
+    smallest = np.finfo(float).tiny / np.finfo(float).eps
+    if not np.all(weights >= smallest):
         ratio = values.min() / values.max()
-        limit = np.log(np.finfo(float).tiny) / np.log(ratio)
+        limit = np.log(smallest) / np.log(ratio)
         raise ValueError(
             f"weight_power={weight_power:g} is too extreme for these eigenvalues: "
             f"(smallest / largest) ** |weight_power| = {ratio:.3g} ** {abs(weight_power):g} "
             "underflows, so some directions would get zero weight. Use "
-            f"|weight_power| <= {limit:.4g}."
+            f"|weight_power| <= {np.floor(limit * 10) / 10:g}."
         )
     return weights

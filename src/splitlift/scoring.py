@@ -166,9 +166,12 @@ def score_candidates(candidates, X=None, y=None, reference=None, estimator=None,
     ``A diag(1 / scale)``; its ``input_mean`` only translates the lifted
     data, which changes neither the leakage nor an axis-split forest.
 
-    A candidate is valid when it is a 2-D matrix with ``d`` columns, finite,
-    with no zero row and of rank d (relative singular-value tolerance 1e-10,
-    as :class:`LiftMatrix`); it is then normalised to ``Σ_i ‖a_i‖ = 1``.
+    A candidate is valid when it is a real 2-D matrix with ``d`` columns,
+    finite, with no zero row and unit directions ``a_i / ‖a_i‖`` of rank d
+    (relative singular-value tolerance 1e-10, as :class:`LiftMatrix`); it is
+    then normalised to ``Σ_i ‖a_i‖ = 1``. Norms, rank and leakage are
+    computed after dividing by the largest entry, so a matrix and any
+    positive multiple of it (1e-300 or 1e300 times) score alike.
 
     References
     ----------
@@ -346,7 +349,7 @@ def _folds(cv, X, y, classify: bool, seed: int) -> list:
             )
         splitter = (StratifiedKFold if classify else KFold)(
             int(cv), shuffle=True, random_state=seed)
-    elif hasattr(cv, "split"):
+    elif hasattr(cv, "split") and not isinstance(cv, str | bytes):
         splitter = cv
     else:
         raise ValueError(
@@ -387,9 +390,9 @@ def _read_candidate(item):
     if isinstance(item, str | Path):
         return _read_file(Path(item))
     try:
-        return as_real_array(item, "the candidate")
+        return as_real_array(item, "candidate")
     except ValueError as error:
-        raise _InvalidCandidate(f"not a real numeric matrix ({error})") from None
+        raise _InvalidCandidate(str(error).rstrip(".")) from None
 
 
 def _read_file(path: Path):
