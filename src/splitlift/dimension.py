@@ -372,7 +372,16 @@ def resolve_rule(rule, estimator):
                 f"dim_rule={rule!r} is not available for {type(estimator).__name__}; "
                 f"choose one of {sorted(available)}."
             )
-        return RULES[rule]()
-    if not hasattr(rule, "select"):
+        rule = RULES[rule]()
+    elif not hasattr(rule, "select"):
         raise ValueError(f"dim_rule must be a rule name or an object with select(), got {rule!r}.")
-    return rule
+    return _seeded(rule, getattr(estimator, "random_state", None))
+
+
+def _seeded(rule, random_state):
+    """A copy of ``rule`` seeded by the estimator when the rule has no seed of its own."""
+    if random_state is None or not hasattr(rule, "get_params"):
+        return rule
+    if "random_state" not in rule.get_params(deep=False) or rule.random_state is not None:
+        return rule
+    return clone(rule).set_params(random_state=random_state)

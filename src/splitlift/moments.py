@@ -21,6 +21,10 @@ from scipy import sparse
 #: coordinates keep about six significant digits in float64.
 DEFAULT_RANK_TOLERANCE = 1e-10
 
+#: A column whose standard deviation is at most this multiple of its mean
+#: absolute level carries only round-off: it is treated as constant.
+CONSTANT_TOLERANCE = 1e-12
+
 # Up to this many slices, slice sums use dense indicator blocks (else sparse).
 _DENSE_INDICATOR_SLICES = 64
 
@@ -73,23 +77,69 @@ def covariance(X: np.ndarray, mean: np.ndarray) -> np.ndarray:
     return centred_cross_product(X, mean) / n
 
 
+def column_location_scale(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Column means and population standard deviations, safe at any magnitude.
+
+    Data near the ends of the float range (entries around 1e±300) overflow or
+    underflow when squared; such columns are first divided by a power of two
+    near their largest absolute entry (exact in binary floating point), and
+    the results are scaled back, so no finite column is ever mistaken for a
+    constant one or given an infinite spread.
+    """
+    magnitude = power_of_two_scale(X)
+    if np.all(magnitude == 1.0):
+        return X.mean(axis=0), X.std(axis=0)
+    scaled = X / magnitude
+    return scaled.mean(axis=0) * magnitude, scaled.std(axis=0) * magnitude
+
+
+#: Columns whose largest absolute entry lies outside [2^-SAFE, 2^SAFE] are
+#: rescaled before any second moment is formed (their squares would leave
+#: the float range).
+_SAFE_EXPONENT = 480
+
+
+def power_of_two_scale(X: np.ndarray) -> np.ndarray:
+    """Per-column power of two that brings extreme columns near unit size.
+
+    Ones for every column whose largest absolute entry is within
+    ``2^±480`` (ordinary data); elsewhere ``2^e`` with ``e`` the exponent of
+    that entry, so dividing by it is exact and never overflows.
+    """
+    largest = np.max(np.abs(X), axis=0) if X.shape[0] else np.zeros(X.shape[1])
+    _, exponents = np.frexp(largest)
+    extreme = (largest > 0) & (np.abs(exponents) > _SAFE_EXPONENT)
+    return np.where(extreme, np.ldexp(1.0, exponents), 1.0)
+
+
+def constant_columns(mean: np.ndarray, spread: np.ndarray) -> np.ndarray:
+    """Columns whose spread is zero or only round-off relative to their level."""
+    return ~(spread > CONSTANT_TOLERANCE * np.abs(mean))
+
+
 @dataclass(frozen=True)
 class Whitening:
     """Centring and whitening of the inputs, ``z = W (x - mean)``.
 
     ``W`` has shape (r, d) with ``W Σ W^T = I_r``, where ``Σ`` is the
-    population covariance (divisor n, as in Li 1991) and ``r`` the number of
-    covariance eigenvalues above ``tolerance`` times the largest. When
-    ``r < d`` (constant or collinear columns) estimation happens in the
-    r-dimensional well-conditioned part; directions map back to input
-    coordinates with :meth:`to_input`.
+    population covariance (divisor n, as in Li 1991). The rank is judged on
+    the correlation scale, so that it does not depend on the units of the
+    columns: constant columns (zero spread, or only round-off relative to
+    their level) are left out, and ``r`` counts the eigenvalues of the
+    correlation matrix of the others above ``tolerance`` times the largest.
+    ``W = Λ^{-1/2} V^T D^{-1}`` with ``D`` the column standard deviations and
+    ``V Λ V^T`` the kept part of the correlation matrix, so ``z`` is unchanged
+    when a column is rescaled: every method built on ``z`` is equivariant
+    under invertible column scaling. When ``r < d`` (constant or collinear
+    columns) estimation happens in the r-dimensional well-conditioned part;
+    directions map back to input coordinates with :meth:`to_input`.
 
     Attributes
     ----------
     mean : ndarray of shape (d,)
     covariance : ndarray of shape (d, d)
     matrix : ndarray of shape (r, d)
-        The whitening matrix ``W`` (symmetric inverse root on the kept part).
+        The whitening matrix ``W``.
     rank : int
     tolerance : float
     """
@@ -109,24 +159,23 @@ class Whitening:
     @classmethod
     def from_moments(cls, mean, covariance, tolerance: float = DEFAULT_RANK_TOLERANCE):
         """Build the whitening from a known mean and covariance."""
-        values, vectors = np.linalg.eigh(covariance)
-        largest = values[-1]
-        if not largest > 0:
+        d = covariance.shape[0]
+        spread = np.sqrt(np.clip(np.diag(covariance), 0.0, None))
+        varying = ~constant_columns(mean, spread)
+        if not varying.any():
             raise ValueError(
                 "every input column is constant, so there is no direction to estimate; "
                 "pass features that vary."
             )
-        kept = values > tolerance * largest
+        inverse_spread = 1.0 / spread[varying]
+        correlation = covariance[np.ix_(varying, varying)] * np.outer(inverse_spread,
+                                                                      inverse_spread)
+        values, vectors = np.linalg.eigh(correlation)
+        kept = values > tolerance * values[-1]
         rank = int(kept.sum())
-        if rank < covariance.shape[0]:
-            warnings.warn(
-                f"the input covariance has rank {rank} < {covariance.shape[0]} at relative "
-                f"tolerance {tolerance:g} (constant or collinear columns); the subspace is "
-                "estimated in the well-conditioned part. Drop redundant columns to silence this.",
-                CollinearityWarning,
-                stacklevel=3,
-            )
-        matrix = (vectors[:, kept] / np.sqrt(values[kept])).T
+        _warn_degenerate_columns(varying, rank, tolerance)
+        matrix = np.zeros((rank, d))
+        matrix[:, varying] = (vectors[:, kept] / np.sqrt(values[kept])).T * inverse_spread
         return cls(mean, covariance, matrix, rank, float(tolerance))
 
     def transform(self, X: np.ndarray) -> np.ndarray:
@@ -137,13 +186,36 @@ class Whitening:
         """Map directions ``η`` of whitened space to input directions ``W^T η``.
 
         These are the published (un-orthonormalised) directions
-        ``β = Σ^{-1/2} η``: ``β^T x`` is the corresponding summary.
+        ``β = Σ^{-1/2} η`` up to a rotation of whitened space, which leaves the
+        methods' eigenvalues unchanged: ``β^T x`` is the corresponding summary.
         """
         return self.matrix.T @ whitened_directions
 
     def whiten_moment(self, moment: np.ndarray) -> np.ndarray:
         """Express a (d, d) second moment of ``x - mean`` in whitened coordinates."""
         return self.matrix @ moment @ self.matrix.T
+
+
+def _warn_degenerate_columns(varying: np.ndarray, rank: int, tolerance: float) -> None:
+    constant = np.flatnonzero(~varying).tolist()
+    collinear = int(varying.sum()) - rank
+    if not constant and not collinear:
+        return
+    parts = []
+    if constant:
+        parts.append(f"constant columns {constant} are left out")
+    if collinear:
+        parts.append(
+            f"{collinear} direction(s) of the other columns are collinear (correlation "
+            f"eigenvalues below {tolerance:g} times the largest) and are left out"
+        )
+    warnings.warn(
+        f"the input covariance has rank {rank} < {varying.size}: " + "; ".join(parts)
+        + ". The subspace is estimated in the well-conditioned part; drop redundant "
+        "columns to silence this.",
+        CollinearityWarning,
+        stacklevel=4,
+    )
 
 
 @dataclass(frozen=True)
@@ -251,6 +323,11 @@ def slice_response(y, n_slices: int, slicing: str = "auto") -> Slices:
             return Slices(inverse.ravel(), counts, "value", values)
     y = y.astype(float, copy=False)
     _refuse_constant(2 if y.min() < y.max() else 1)
+    if y.size < 2 * n_slices:
+        raise ValueError(
+            f"n_samples = {y.size} is too few for {n_slices} slices (need at least 2 rows "
+            f"per slice, {2 * n_slices} rows); lower n_slices or pass more data."
+        )
     return _equal_count_slices(y, n_slices)
 
 
@@ -288,8 +365,10 @@ def check_slice_sizes(slices: Slices, n_slices_requested: int) -> None:
             f"n_samples = {slices.labels.size} is too few for {n_slices_requested} slices "
             "(need at least 2 rows per slice); lower n_slices or pass more data."
         )
+    value = slices.values[small]
+    value = value.item() if isinstance(value, np.generic) else value
     raise ValueError(
-        f"response value {slices.values[small].item()!r} occurs in a single row, but every slice "
+        f"response value {value!r} occurs in a single row, but every slice "
         "needs at least 2 rows; merge rare values or drop those rows."
     )
 

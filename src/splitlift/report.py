@@ -88,6 +88,7 @@ class LiftReport:
         check = getattr(lift, "linearity_", None)
         if check is not None and isinstance(lift.estimator_, MomentEstimator) and check.message():
             notes.append(check.message())
+        notes.extend(getattr(lift.estimator_, "fit_warnings_", []))
         if stability is not None:
             comparisons[0].bootstrap_leakage = stability.leakage_quantiles()
         report = cls(

@@ -11,12 +11,14 @@ from sklearn.base import (
     TransformerMixin,
     clone,
 )
+from sklearn.utils import check_random_state
 from sklearn.utils._param_validation import HasMethods, Interval, StrOptions
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from .estimators import SlicedInverse
 from .lift import LiftMatrix
 from .linearity import check_linearity
+from .moments import column_location_scale
 
 
 class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstimator):
@@ -59,7 +61,9 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         per direction.
     random_state : int, RandomState or None, default None
         Passed to :meth:`LiftMatrix.from_subspace` (None: deterministic
-        spread of directions).
+        spread of directions), and to the estimator (and through it to its
+        ``dim="auto"`` rule) when the estimator's own ``random_state`` is
+        None, so one seed makes the whole fit reproducible.
 
     Attributes
     ----------
@@ -146,8 +150,8 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         self._validate_params()
         X = validate_data(self, X, dtype=float)
         standardised = self._fit_standardisation(X)
-        estimator = SlicedInverse() if self.estimator is None else self.estimator
-        self.estimator_ = clone(estimator).fit(standardised, y)
+        estimator = clone(SlicedInverse() if self.estimator is None else self.estimator)
+        self.estimator_ = _seed_estimator(estimator, self.random_state).fit(standardised, y)
         self.subspace_basis_ = self.estimator_.basis_
         names = getattr(self, "feature_names_in_", None)
         self.lift_ = LiftMatrix.from_subspace(
@@ -174,10 +178,9 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         if not self.standardize:
             self.mean_, self.scale_ = np.zeros(d), np.ones(d)
             return X
-        self.mean_ = X.mean(axis=0)
-        scale = X.std(axis=0)
+        self.mean_, scale = column_location_scale(X)
         self.scale_ = np.where(scale > 0, scale, 1.0)
-        return (X - self.mean_) / self.scale_
+        return _standardise(X, self.mean_, self.scale_)
 
     def transform(self, X) -> np.ndarray:
         """Lifted features ``((X - mean_) / scale_) @ output_matrix_.T``.
@@ -192,7 +195,7 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         """
         check_is_fitted(self, "lift_")
         X = validate_data(self, X, dtype=float, reset=False)
-        return ((X - self.mean_) / self.scale_) @ self.output_matrix_.T
+        return self.lift_.apply(X)  # one code path for every place a lift is applied
 
     def reference_in_lift_coordinates(self, reference) -> np.ndarray:
         """Map a subspace given in input coordinates to the lift's coordinates.
@@ -318,6 +321,21 @@ class ApplyLift(TransformerMixin, BaseEstimator):
         check_is_fitted(self, "lift_")
         X = validate_data(self, X, dtype=float, reset=False)
         return self.lift_.apply(X)
+
+
+def _standardise(X: np.ndarray, mean: np.ndarray, scale: np.ndarray) -> np.ndarray:
+    """``(X - mean) / scale`` without overflow: dividing first keeps finite rows finite."""
+    return X / scale - mean / scale
+
+
+def _seed_estimator(estimator, random_state):
+    """Give an unseeded estimator the transformer's seed, so one seed fixes the whole fit."""
+    params = estimator.get_params(deep=False)
+    if random_state is None or "random_state" not in params or params["random_state"] is not None:
+        return estimator
+    seed = random_state if isinstance(random_state, Integral) else \
+        check_random_state(random_state).randint(np.iinfo(np.int32).max)
+    return estimator.set_params(random_state=seed)
 
 
 def _json_safe(value):

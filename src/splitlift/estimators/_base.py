@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import warnings
 from numbers import Integral, Real
 
 import numpy as np
@@ -11,7 +12,36 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 
 from .._validation import check_dim, check_sample_count
 from ..dimension import RULES, resolve_rule
-from ..moments import Whitening, check_slice_sizes, slice_response
+from ..moments import (
+    CollinearityWarning,
+    Whitening,
+    _is_discrete,
+    check_slice_sizes,
+    constant_columns,
+    power_of_two_scale,
+    slice_response,
+)
+
+#: Rows per feature below which every estimate is flagged as unreliable
+#: (common practice for moment and smoothing estimators, not a sharp limit).
+MIN_ROWS_PER_FEATURE = 10
+
+#: Excess kurtosis of a numeric response above which methods that weight rows
+#: by the response value (pHd, OPG, ADE) are flagged; a normal response has 0,
+#: an exponential one 6 (common practice threshold).
+HEAVY_TAIL_KURTOSIS = 20.0
+
+#: Share of rows holding one response value above which slicing is flagged.
+DOMINANT_VALUE_SHARE = 0.5
+
+#: Condition index (square root of the ratio of the extreme eigenvalues of the
+#: correlation matrix) above which inputs count as ill-conditioned; 30 is the
+#: rule of thumb of Belsley, Kuh & Welsch (1980), from memory.
+CONDITION_INDEX_LIMIT = 30.0
+
+
+class EstimationWarning(UserWarning):
+    """The fit ran, but the data make the estimate unreliable; the message says what to do."""
 
 
 class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstimator):
@@ -36,6 +66,9 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         0 (no detectable structure; ``basis_`` then has no columns).
     dim_test_ : splitlift.dimension.DimensionTest or None
         The table of the dimension rule when ``dim="auto"``.
+    fit_warnings_ : list of str
+        Reasons, found while fitting, to doubt this estimate (each also
+        issued as an :class:`EstimationWarning`); empty when none.
     n_features_in_ : int
     feature_names_in_ : ndarray of str
         Present when ``X`` had string column names.
@@ -44,10 +77,15 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
     _parameter_constraints: dict = {
         "dim": [Interval(Integral, 1, None, closed="left"), StrOptions({"auto"})],
         "dim_rule": [StrOptions(set(RULES)), HasMethods(["select"]), None],
+        "random_state": ["random_state"],
     }
 
     #: Whether ``y`` may be class labels of any dtype.
     _accepts_labels = True
+    #: Whether rows enter weighted by the response value (not only its order).
+    _weights_rows_by_response = False
+    #: Whether neighbourhoods are measured in standardised (not whitened) inputs.
+    _neighbourhoods_in_standardised_inputs = False
     #: Dimension rules that make sense for the method, and the default one.
     _dim_rules = frozenset({"permutation", "ladle", "cv"})
     _default_dim_rule = "ladle"
@@ -74,14 +112,17 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         automatic = isinstance(self.dim, str)
         rule = resolve_rule(getattr(self, "dim_rule", None), self) if automatic else None
         dim = None if automatic else check_dim(self.dim, X.shape[1])
-        eigenvalues, directions = self._eigen_decomposition(X, y)
+        eigenvalues, directions = self._scale_safe_decomposition(X, y)
         self.eigenvalues_ = eigenvalues
         self.directions_ = directions
         usable = int(np.sum(np.linalg.norm(directions, axis=0) > 0))
         self._n_usable = usable  # rules never try more directions than the method gives
         self.dim_test_ = None
         if automatic:
-            dim, self.dim_test_ = rule.select(self, X, y)
+            with warnings.catch_warnings():  # resampled fits repeat this fit's warnings
+                warnings.simplefilter("ignore", EstimationWarning)
+                warnings.simplefilter("ignore", CollinearityWarning)
+                dim, self.dim_test_ = rule.select(self, X, y)
             dim = min(dim, usable)
         elif dim > usable:
             raise ValueError(
@@ -91,7 +132,89 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         self.dim_ = dim
         self.basis_ = (np.linalg.qr(directions[:, :dim])[0] if dim
                        else np.zeros((directions.shape[0], 0)))
+        self.fit_warnings_ = self._quality_warnings(X, y)
         return self
+
+    def _scale_safe_decomposition(self, X, y):
+        """Eigen-decompose, first bringing columns near the float limits to unit size.
+
+        Columns whose largest entry is beyond ``2^±480`` are divided by a
+        power of two (exact), so second moments neither overflow nor
+        underflow; the directions are mapped back (``β_x = β / scale``, then
+        scaled to unit length).
+        Fitted attributes such as ``whitening_`` then refer to the rescaled
+        columns, ``column_scale_`` holds the factors (ones for ordinary data).
+        """
+        self.column_scale_ = power_of_two_scale(X)
+        rescaled = not np.all(self.column_scale_ == 1.0)
+        eigenvalues, directions = self._eigen_decomposition(
+            X / self.column_scale_ if rescaled else X, y)
+        if not (np.all(np.isfinite(eigenvalues)) and np.any(eigenvalues != 0)):
+            raise ValueError(
+                f"{type(self).__name__} found no direction at all: its method matrix is "
+                + ("not finite" if not np.all(np.isfinite(eigenvalues)) else "exactly zero")
+                + ". The response may not depend on X in a way this method sees; try "
+                "another estimator (GradientOuterProduct sees most kinds of dependence) "
+                "or check the data."
+            )
+        if rescaled:  # then unit columns: squares of entries near 1e±300 would underflow
+            directions = directions / self.column_scale_[:, None]
+            largest = np.max(np.abs(directions), axis=0)
+            directions = directions / np.where(largest > 0, largest, 1.0)
+            directions /= np.maximum(np.linalg.norm(directions, axis=0), 1.0)
+        return eigenvalues, directions
+
+    def _quality_warnings(self, X, y) -> list[str]:
+        """Issue and return the reasons to doubt this fit (quiet degradation made loud)."""
+        n, d = X.shape
+        reasons = []
+        if n < MIN_ROWS_PER_FEATURE * d:
+            reasons.append(
+                f"only {n} rows for {d} features (fewer than {MIN_ROWS_PER_FEATURE} per "
+                "feature): subspace estimates are unreliable at this size. Collect more data "
+                "or use fewer features, and check splitlift.stability() before trusting it."
+            )
+        numeric = not _is_discrete(y)
+        if numeric and self._weights_rows_by_response:
+            standardised = y.astype(float) / np.max(np.abs(y))  # no overflow in the 4th power
+            centred = standardised - standardised.mean()
+            spread = np.mean(centred**2)
+            kurtosis = np.mean(centred**4) / spread**2 - 3.0 if spread > 0 else 0.0
+            if kurtosis > HEAVY_TAIL_KURTOSIS:
+                reasons.append(
+                    f"the response is heavy-tailed (excess kurtosis {kurtosis:.3g} > "
+                    f"{HEAVY_TAIL_KURTOSIS:g}); {type(self).__name__} weights rows by the "
+                    "response value, so a few extreme rows can dominate. Fit a transformed "
+                    "response (log or ranks) or use SlicedInverse/SlicedAverageVariance, "
+                    "which only use the order of y."
+                )
+        if numeric and y.size:
+            _, counts = np.unique(y, return_counts=True)
+            share = counts.max() / y.size
+            if share > DOMINANT_VALUE_SHARE:
+                reasons.append(
+                    f"one response value holds {share:.0%} of the rows, so most slices or "
+                    "local fits see a constant response. Model the rows with other values "
+                    "separately, or treat y as class labels (pass it as strings)."
+                )
+        if self._neighbourhoods_in_standardised_inputs and d > 1:
+            safe = X / self.column_scale_
+            varying = ~constant_columns(safe.mean(axis=0), safe.std(axis=0))
+            if varying.sum() > 1:
+                values = np.linalg.eigvalsh(np.corrcoef(safe[:, varying], rowvar=False))
+                index = np.sqrt(values[-1] / max(values[0], np.finfo(float).tiny))
+                if index > CONDITION_INDEX_LIMIT:
+                    reasons.append(
+                        f"the inputs are strongly correlated (condition index {index:.3g} > "
+                        f"{CONDITION_INDEX_LIMIT:g}), so neighbourhoods stretch along few "
+                        "directions and local gradients are unstable. Whiten or drop "
+                        "redundant columns first (e.g. PCA with whiten=True), or use a "
+                        "moment method (SlicedInverse), which whitens itself."
+                    )
+        reasons += self._method_warnings()
+        for reason in reasons:
+            warnings.warn(reason, EstimationWarning, stacklevel=3)
+        return reasons
 
     def transform(self, X) -> np.ndarray:
         """Project onto the estimated subspace, ``X @ basis_``.
@@ -111,6 +234,10 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
     @property
     def _n_features_out(self) -> int:
         return self.dim_
+
+    def _method_warnings(self) -> list[str]:
+        """Method-specific reasons to doubt the fit, found by ``_eigen_decomposition``."""
+        return []
 
     def _eigen_decomposition(self, X, y):  # pragma: no cover - abstract
         raise NotImplementedError

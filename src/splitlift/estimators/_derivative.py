@@ -71,6 +71,10 @@ class AverageDerivative(SubspaceEstimator):
         density that are left out of the average, where the estimated score
         is unreliable. Must lie in [0, 1). Ignored when
         ``density_weighted=True``.
+    random_state : int, RandomState instance or None, default None
+        Seeds the resampling of the ``dim="auto"`` rule (bootstrap,
+        permutations or folds) when the rule's own ``random_state`` is None,
+        so that one seed makes the whole fit reproducible.
 
     Attributes
     ----------
@@ -88,6 +92,9 @@ class AverageDerivative(SubspaceEstimator):
         response column (the centred response, or each slice indicator).
     bandwidth_ : float
         Bandwidth used.
+    effective_neighbours_ : float
+        Mean kernel weight of the other rows around each row; below 0.01 the
+        estimate rests on a few pairs (warned), below 1e-10 it is refused.
     whitening_ : splitlift.moments.Whitening
         The sphering of the inputs; constant or collinear columns are left
         out at its default tolerance, with a
@@ -172,14 +179,17 @@ class AverageDerivative(SubspaceEstimator):
         "trim": [Interval(Real, 0, 1, closed="left")],
     }
 
+    _weights_rows_by_response = True
+
     def __init__(self, dim=1, dim_rule=None, bandwidth=None, density_weighted=True,
-                 n_slices=None, trim=0.05):
+                 n_slices=None, trim=0.05, random_state=None):
         self.dim = dim
         self.dim_rule = dim_rule
         self.bandwidth = bandwidth
         self.density_weighted = density_weighted
         self.n_slices = n_slices
         self.trim = trim
+        self.random_state = random_state
 
     def _eigen_decomposition(self, X, y):
         n = X.shape[0]
@@ -192,12 +202,32 @@ class AverageDerivative(SubspaceEstimator):
             rule_of_thumb_bandwidth(n, Z.shape[1]) if self.bandwidth is None else self.bandwidth
         )
         if self.density_weighted:
-            derivatives = _density_weighted_derivatives(Z, responses, self.bandwidth_)
+            derivatives, neighbours = _density_weighted_derivatives(Z, responses, self.bandwidth_)
         else:
-            derivatives = _kernel_score_derivatives(Z, responses, self.bandwidth_, self.trim)
+            derivatives, neighbours = _kernel_score_derivatives(Z, responses, self.bandwidth_,
+                                                                self.trim)
+        _refuse_degenerate(derivatives, neighbours, self.bandwidth_, n, Z.shape[1])
+        self.effective_neighbours_ = neighbours
         # chain rule for z = W (x - mean): the input gradient is W^T times the sphered one
         self.average_derivatives_ = whitening.to_input(derivatives.T).T
-        return self._directions(self.average_derivatives_, proportions, available)
+        # decomposed in sphered coordinates, where it does not depend on column units
+        values, sphered_directions = self._directions(derivatives, proportions, available)
+        eigenvalues, directions = np.zeros(X.shape[1]), np.zeros((X.shape[1], X.shape[1]))
+        eigenvalues[:available] = values
+        directions[:, :available] = whitening.to_input(sphered_directions)
+        directions /= np.where((norms := np.linalg.norm(directions, axis=0)) > 0, norms, 1.0)
+        return eigenvalues, directions
+
+    def _method_warnings(self) -> list[str]:
+        if self.effective_neighbours_ >= FEW_NEIGHBOURS:
+            return []
+        return [
+            f"the kernel at bandwidth {self.bandwidth_:.3g} gives each row only "
+            f"{self.effective_neighbours_:.2g} effective neighbours (fewer than "
+            f"{FEW_NEIGHBOURS:g}), so the average derivative rests on a few pairs of rows. "
+            "Pass a larger bandwidth, use fewer features or more rows, or use "
+            "GradientOuterProduct or SlicedInverse."
+        ]
 
     def _responses(self, y) -> tuple[np.ndarray, np.ndarray | None]:
         """Centred response columns and, when sliced, the slice proportions."""
@@ -230,6 +260,7 @@ class AverageDerivative(SubspaceEstimator):
 
     @staticmethod
     def _directions(derivatives, proportions, available):
+        """Leading ``available`` eigen-pairs of the derivatives' (scaled) outer product."""
         if proportions is None:
             matrix = np.outer(derivatives[0], derivatives[0])
         else:
@@ -240,12 +271,30 @@ class AverageDerivative(SubspaceEstimator):
         values, vectors = np.clip(values[order], 0.0, None), vectors[:, order]
         if proportions is None and vectors[:, 0] @ derivatives[0] < 0:
             vectors = -vectors
-        d = derivatives.shape[1]
-        eigenvalues = np.zeros(d)
-        eigenvalues[:available] = values
-        directions = np.zeros((d, d))
-        directions[:, :available] = vectors
-        return eigenvalues, directions
+        return values, vectors
+
+
+#: Mean number of effective kernel neighbours per row (``Σ_{j≠i} K_ij``) below
+#: which the estimate rests on a handful of pairs: warned (it ended 20-80
+#: degrees off in simulations at such values), and below the second value
+#: refused, since it is then round-off (calibrated on Gaussian designs).
+FEW_NEIGHBOURS, NO_NEIGHBOURS = 1e-2, 1e-10
+
+
+def _refuse_degenerate(derivatives: np.ndarray, neighbours: float, bandwidth: float,
+                       n: int, p: int) -> None:
+    """Fail when the kernel weights (nearly) all underflowed, leaving nothing to decompose."""
+    finite = np.all(np.isfinite(derivatives))
+    if finite and np.any(derivatives != 0) and neighbours >= NO_NEIGHBOURS:
+        return
+    raise ValueError(
+        f"average derivative estimation is degenerate here: with n = {n} rows in {p} "
+        f"sphered dimensions the kernel at bandwidth {bandwidth:.3g} gives each row "
+        f"{neighbours:.2g} effective neighbours, so the estimated average derivative is "
+        + ("not finite" if not finite else "round-off")
+        + ". Pass a larger bandwidth (e.g. bandwidth=2.0), use fewer features, or use "
+        "another estimator (SlicedInverse or GradientOuterProduct)."
+    )
 
 
 def _pair_blocks(Z: np.ndarray, bandwidth: float) -> Iterator[tuple[slice, np.ndarray]]:
@@ -264,21 +313,29 @@ def _pair_blocks(Z: np.ndarray, bandwidth: float) -> Iterator[tuple[slice, np.nd
         yield rows, block
 
 
-def _density_weighted_derivatives(Z, responses, bandwidth) -> np.ndarray:
-    """Powell-Stock-Stoker U-statistic for each response column, shape (q, p)."""
+def _density_weighted_derivatives(Z, responses, bandwidth) -> tuple[np.ndarray, float]:
+    """Powell-Stock-Stoker U-statistic for each response column, shape (q, p).
+
+    Also returns the mean number of effective neighbours ``Σ_{j≠i} K_ij``.
+    """
     n, p = Z.shape
     laplacian_product = np.zeros((n, responses.shape[1]))
+    neighbours = 0.0
     for rows, block in _pair_blocks(Z, bandwidth):
         kernel = np.exp(-0.5 * block, out=block)
         # rows of (D - K) r: the self pair cancels, so no diagonal fix is needed
         laplacian_product[rows] = kernel.sum(axis=1)[:, None] * responses[rows]
         laplacian_product[rows] -= kernel @ responses
+        neighbours += kernel.sum() - (rows.stop - rows.start)  # the self pairs weigh 1
     constant = (2 * np.pi) ** (-p / 2) * bandwidth ** (-(p + 2))
-    return (2 * constant / (n * (n - 1))) * (laplacian_product.T @ Z)
+    return (2 * constant / (n * (n - 1))) * (laplacian_product.T @ Z), max(neighbours / n, 0.0)
 
 
-def _kernel_score_derivatives(Z, responses, bandwidth, trim) -> np.ndarray:
-    """Härdle-Stoker trimmed kernel-score average for each response column, shape (q, p)."""
+def _kernel_score_derivatives(Z, responses, bandwidth, trim) -> tuple[np.ndarray, float]:
+    """Härdle-Stoker trimmed kernel-score average for each response column, shape (q, p).
+
+    Also returns the mean number of effective neighbours ``Σ_{j≠i} K_ij``.
+    """
     n = Z.shape[0]
     scores = np.empty_like(Z)
     log_density = np.empty(n)
@@ -292,4 +349,4 @@ def _kernel_score_derivatives(Z, responses, bandwidth, trim) -> np.ndarray:
         scores[rows] = (Z[rows] - (kernel @ Z) / totals[:, None]) / bandwidth**2
         log_density[rows] = np.log(totals) - 0.5 * nearest
     kept = log_density >= np.quantile(log_density, trim) if trim > 0 else np.ones(n, bool)
-    return responses[kept].T @ scores[kept] / n
+    return responses[kept].T @ scores[kept] / n, float(np.mean(np.exp(log_density)))

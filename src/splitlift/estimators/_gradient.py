@@ -79,20 +79,22 @@ class GradientOuterProduct(SubspaceEstimator):
         Sharper when the response varies fast along the subspace; each
         iteration costs about one more pass.
     random_state : int, RandomState instance or None, default None
-        Seeds the anchor subsample.
+        Seeds the anchor subsample, and the resampling of the ``dim="auto"``
+        rule when the rule's own ``random_state`` is None.
 
     Attributes
     ----------
     basis_ : ndarray of shape (n_features_in_, dim_)
         Orthonormal basis of the estimated subspace, input coordinates.
     directions_ : ndarray of shape (n_features_in_, n_features_in_)
-        Eigenvectors of ``outer_product_`` as columns, ordered like
-        ``eigenvalues_``; a zero column stands for a constant input column.
+        Unit input directions ``v_k / scale`` from the eigenvectors ``v_k`` of
+        ``outer_product_``, ordered like ``eigenvalues_``; a zero column
+        stands for a constant input column.
     eigenvalues_ : ndarray of shape (n_features_in_,)
         Eigenvalues of ``outer_product_``, descending.
     outer_product_ : ndarray of shape (n_features_in_, n_features_in_)
-        Averaged outer product of the estimated gradients, input coordinates
-        (summed over class indicators for class labels).
+        Averaged outer product of the estimated gradients in standardised
+        coordinates (summed over class indicators for class labels).
     dim_ : int
     n_neighbors_ : int
         Neighbourhood size used.
@@ -113,10 +115,13 @@ class GradientOuterProduct(SubspaceEstimator):
     ``b_i`` of the weighted least-squares fit of ``y_j`` on ``z_j - z_i``
     over its ``k`` nearest neighbours, with weights
     ``exp(-‖z_j - z_i‖² / (2 h²))``, estimates the gradient in standardised
-    coordinates; ``b_i / scale`` is the gradient in input coordinates. The
-    method matrix is ``M = (1/m) Σ_i g_i g_i^T`` over the ``m`` anchors.
-    For ``y = g(B^T x) + ε`` every gradient lies in ``span(B)``, so the
-    leading eigenvectors of ``M`` estimate it (Xia et al. 2002). Refined
+    coordinates. The method matrix is ``M = (1/m) Σ_i b_i b_i^T`` over the
+    ``m`` anchors. For ``y = g(B^T x) + ε`` every gradient lies in
+    ``span(B)`` (in standardised coordinates, ``span(D B)`` with ``D`` the
+    column scales), so the leading eigenvectors ``v_k`` of ``M`` estimate it
+    (Xia et al. 2002) and ``D^{-1} v_k`` are the input directions. ``M`` is
+    decomposed in standardised coordinates because there the estimate does
+    not depend on the units of the columns. Refined
     OPG (Xia 2007) replaces the distance by ``‖V^T (x_j - x_i)‖``, with
     ``V`` the current directions sphered to unit covariance, so that the
     neighbourhoods shrink only along the subspace.
@@ -162,6 +167,9 @@ class GradientOuterProduct(SubspaceEstimator):
         "random_state": ["random_state"],
     }
 
+    _weights_rows_by_response = True
+    _neighbourhoods_in_standardised_inputs = True
+
     def __init__(
         self,
         dim=2,
@@ -194,21 +202,20 @@ class GradientOuterProduct(SubspaceEstimator):
         self.n_neighbors_ = self._neighbourhood_size(n, Z.shape[1])
         self.anchor_indices_ = self._anchors(n)
 
-        outer = self._outer_product(Z, Z, responses, standardisation)
+        outer = self._outer_product(Z, Z, responses)
         for _ in range(self.refine):
             values, vectors = _descending_eigh(outer)
-            current = vectors[:, : self.dim]
-            # index values V^T x in standardised terms, sphered within the subspace
-            index = Z @ (standardisation.scale[standardisation.kept, None] * current)
+            # index values V^T z, sphered within the subspace
+            index = Z @ vectors[:, : self.dim]
             sphered = Whitening.fit(index).transform(index)
-            outer = self._outer_product(sphered, Z, responses, standardisation)
+            outer = self._outer_product(sphered, Z, responses)
 
         values, vectors = _descending_eigh(outer)
         d, rank = X.shape[1], standardisation.rank
         eigenvalues = np.zeros(d)
         eigenvalues[:rank] = values
         directions = np.zeros((d, d))
-        directions[:, :rank] = standardisation.embed(vectors)
+        directions[:, :rank] = standardisation.directions_to_input(vectors)
         self.outer_product_ = standardisation.embed(standardisation.embed(outer).T).T
         return eigenvalues, directions
 
@@ -229,8 +236,8 @@ class GradientOuterProduct(SubspaceEstimator):
         rng = check_random_state(self.random_state)
         return np.sort(rng.choice(n, size=count, replace=False))
 
-    def _outer_product(self, metric_points, Z, responses, standardisation) -> np.ndarray:
-        """Average outer product of local linear gradients, input coordinates (kept columns)."""
+    def _outer_product(self, metric_points, Z, responses) -> np.ndarray:
+        """Average outer product of local linear gradients, standardised coordinates."""
         k = self.n_neighbors_
         chunk = chunk_size(k, max(Z.shape[1], responses.shape[1]))
         total = np.zeros((Z.shape[1], Z.shape[1]))
@@ -239,7 +246,7 @@ class GradientOuterProduct(SubspaceEstimator):
         ):
             weights = gaussian_weights(distances, self.bandwidth)
             gradients = local_linear_gradients(Z, responses, rows, indices, weights)
-            flat = standardisation.gradients_to_input(gradients.reshape(-1, Z.shape[1]))
+            flat = gradients.reshape(-1, Z.shape[1])
             total += flat.T @ flat
         return total / self.anchor_indices_.size
 

@@ -24,6 +24,10 @@ class HessianDirections(MomentEstimator):
         X, which removes the linear trend so that curvature stands out.
     rank_tolerance : float, default 1e-10
         See :class:`SlicedInverse`.
+    random_state : int, RandomState instance or None, default None
+        Seeds the resampling of the ``dim="auto"`` rule (bootstrap,
+        permutations or folds) when the rule's own ``random_state`` is None,
+        so that one seed makes the whole fit reproducible.
 
     Attributes
     ----------
@@ -72,15 +76,17 @@ class HessianDirections(MomentEstimator):
         "residuals": ["boolean"],
     }
     _accepts_labels = False
+    _weights_rows_by_response = True
     _dim_rules = frozenset({"chi2", "permutation", "ladle", "cv"})
     _default_dim_rule = "chi2"
 
     def __init__(self, dim=2, dim_rule=None, residuals=False,
-                 rank_tolerance=DEFAULT_RANK_TOLERANCE):
+                 rank_tolerance=DEFAULT_RANK_TOLERANCE, random_state=None):
         self.dim = dim
         self.dim_rule = dim_rule
         self.residuals = residuals
         self.rank_tolerance = rank_tolerance
+        self.random_state = random_state
 
     def _method_matrix(self, X, y, whitening):
         weights = y - y.mean()

@@ -20,11 +20,14 @@ from dataclasses import dataclass
 import numpy as np
 from sklearn.neighbors import NearestNeighbors
 
-from ..moments import CollinearityWarning, _is_discrete, _refuse_constant, slice_response
-
-#: A column whose standard deviation is below this multiple of its mean
-#: absolute level carries only round-off: it is treated as constant.
-CONSTANT_TOLERANCE = 1e-12
+from ..moments import (
+    CollinearityWarning,
+    _is_discrete,
+    _refuse_constant,
+    column_location_scale,
+    constant_columns,
+    slice_response,
+)
 
 #: Relative ridge added to the slope block of every local normal equation,
 #: as a fraction of that block's mean diagonal. It only matters when a
@@ -61,9 +64,8 @@ class Standardisation:
     @classmethod
     def fit(cls, X: np.ndarray) -> Standardisation:
         """Estimate column means and standard deviations of ``X``."""
-        mean = X.mean(axis=0)
-        scale = X.std(axis=0)
-        kept = scale > CONSTANT_TOLERANCE * np.abs(mean)
+        mean, scale = column_location_scale(X)
+        kept = ~constant_columns(mean, scale)
         if not kept.any():
             raise ValueError(
                 "every input column is constant, so there is no direction to estimate; "
@@ -88,13 +90,16 @@ class Standardisation:
         """Standardised kept columns, shape (n, rank)."""
         return (X[:, self.kept] - self.mean[self.kept]) / self.scale[self.kept]
 
-    def gradients_to_input(self, gradients: np.ndarray) -> np.ndarray:
-        """Map gradients over standardised kept columns (last axis) to input coordinates.
+    def directions_to_input(self, vectors: np.ndarray) -> np.ndarray:
+        """Map (rank, k) directions of standardised space to unit input directions (d, k).
 
-        By the chain rule ``∂f/∂x_j = (∂f/∂z_j) / scale_j``. The result keeps
-        only the kept columns; :meth:`embed` restores the dropped ones.
+        The summary ``v^T z`` equals ``(v / scale)^T x`` up to a constant, so
+        the input direction is ``v / scale``, normalised to unit length;
+        dropped (constant) columns get zero weight.
         """
-        return gradients / self.scale[self.kept]
+        directions = self.embed(vectors / self.scale[self.kept, None])
+        norms = np.linalg.norm(directions, axis=0)
+        return directions / np.where(norms > 0, norms, 1.0)
 
     def embed(self, vectors: np.ndarray) -> np.ndarray:
         """Place (rank, k) vectors over the kept columns into (d, k), zeros elsewhere."""

@@ -34,6 +34,10 @@ class SlicedInverse(SlicedMomentEstimator):
         Relative eigenvalue tolerance of the input covariance: directions
         below it (constant or collinear columns) are left out of the
         estimate, with a :class:`~splitlift.moments.CollinearityWarning`.
+    random_state : int, RandomState instance or None, default None
+        Seeds the resampling of the ``dim="auto"`` rule (bootstrap,
+        permutations or folds) when the rule's own ``random_state`` is None,
+        so that one seed makes the whole fit reproducible.
 
     Attributes
     ----------
@@ -86,12 +90,13 @@ class SlicedInverse(SlicedMomentEstimator):
     _default_dim_rule = "chi2"
 
     def __init__(self, n_slices=10, dim=2, dim_rule=None, slicing="auto",
-                 rank_tolerance=DEFAULT_RANK_TOLERANCE):
+                 rank_tolerance=DEFAULT_RANK_TOLERANCE, random_state=None):
         self.n_slices = n_slices
         self.dim = dim
         self.dim_rule = dim_rule
         self.slicing = slicing
         self.rank_tolerance = rank_tolerance
+        self.random_state = random_state
 
     def _method_matrix(self, X, y, whitening):
         slices = self._slices(y)
@@ -150,6 +155,10 @@ class SlicedAverageVariance(SlicedMomentEstimator):
     slicing : {"auto", "count", "value"}, default "auto"
     rank_tolerance : float, default 1e-10
         See :class:`SlicedInverse`.
+    random_state : int, RandomState instance or None, default None
+        Seeds the resampling of the ``dim="auto"`` rule (bootstrap,
+        permutations or folds) when the rule's own ``random_state`` is None,
+        so that one seed makes the whole fit reproducible.
 
     Attributes
     ----------
@@ -188,12 +197,13 @@ class SlicedAverageVariance(SlicedMomentEstimator):
     """
 
     def __init__(self, n_slices=5, dim=2, dim_rule=None, slicing="auto",
-                 rank_tolerance=DEFAULT_RANK_TOLERANCE):
+                 rank_tolerance=DEFAULT_RANK_TOLERANCE, random_state=None):
         self.n_slices = n_slices
         self.dim = dim
         self.dim_rule = dim_rule
         self.slicing = slicing
         self.rank_tolerance = rank_tolerance
+        self.random_state = random_state
 
     def _method_matrix(self, X, y, whitening):
         slices = self._slices(y)
