@@ -102,8 +102,22 @@ def row_norms(matrix: np.ndarray) -> np.ndarray:
 
     Each row is divided by its largest absolute entry before squaring
     (the scaling behind ``hypot``), so rows with entries near 1e300 or
-    1e-300 get their true norm instead of ``inf`` or 0. A norm beyond the
-    float range is ``inf``.
+    1e-300 get their true norm instead of ``inf`` or 0.
+
+    Parameters
+    ----------
+    matrix : ndarray of shape (m, d), finite
+
+    Returns
+    -------
+    ndarray of shape (m,)
+        ``inf`` only where the true norm lies beyond the float range.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> row_norms(np.array([[3e300, 4e300], [3e-300, 4e-300]])).tolist()
+    [5e+300, 5e-300]
     """
     largest = np.max(np.abs(matrix), axis=1)
     safe = np.where(largest > 0, largest, 1.0)
