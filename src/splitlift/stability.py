@@ -171,13 +171,13 @@ def _check_data(estimator, X, y) -> tuple[np.ndarray, np.ndarray]:
 
 def _full_data_fit(estimator, X, y):
     """Coordinates for the resamples, the fitted subspace estimator and the lift."""
-    from .transformer import DirectionLift
+    from .transformer import DirectionLift, _standardise
 
     if isinstance(estimator, DirectionLift):
         if not hasattr(estimator, "lift_"):
             estimator = clone(estimator).fit(X, y)
         check_is_fitted(estimator, "lift_")
-        coordinates = (X - estimator.mean_) / estimator.scale_
+        coordinates = _standardise(X, estimator.mean_, estimator.scale_)  # as at fit time
         return coordinates, estimator.estimator_, estimator.lift_
     if not hasattr(estimator, "basis_"):
         estimator = clone(estimator).fit(X, y)
