@@ -12,6 +12,7 @@ from sklearn.utils.validation import check_is_fitted
 
 from . import geometry
 from ._progress import parallel_map
+from ._validation import check_finite_matrix, check_n_features, check_response
 from .lift import LiftMatrix
 
 QUANTILES = (0.05, 0.25, 0.5, 0.75, 0.95)
@@ -112,8 +113,12 @@ def stability(estimator, X, y, n_boot: int = 200, random_state=None, n_jobs=None
     """
     if isinstance(n_boot, bool) or not isinstance(n_boot, Integral) or n_boot < 2:
         raise ValueError(f"n_boot must be an integer >= 2, got {n_boot!r}.")
-    X = np.asarray(X, dtype=float) if not hasattr(X, "iloc") else X.to_numpy(dtype=float)
-    y = np.asarray(y)
+    if not hasattr(estimator, "fit"):
+        raise ValueError(
+            "estimator must be a splitlift subspace estimator or a DirectionLift (with a fit "
+            f"method), got {type(estimator).__name__}."
+        )
+    X, y = _check_data(estimator, X, y)
     coordinates, inner, lift = _full_data_fit(estimator, X, y)
     dim = inner.dim_
     reference = inner.basis_
@@ -143,15 +148,36 @@ def stability(estimator, X, y, n_boot: int = 200, random_state=None, n_jobs=None
     return SubspaceStability(angles, leakage, dim, n_boot - len(fitted))
 
 
+def _check_data(estimator, X, y) -> tuple[np.ndarray, np.ndarray]:
+    """X and y as arrays, checked against each other and against a fitted estimator."""
+    fitted_names = getattr(estimator, "feature_names_in_", None)
+    if fitted_names is not None and hasattr(X, "columns"):
+        if [str(name) for name in X.columns] != [str(name) for name in fitted_names]:
+            raise ValueError(
+                f"the columns of X {list(map(str, X.columns))} differ from those the "
+                f"{type(estimator).__name__} was fitted on {list(map(str, fitted_names))}; "
+                "pass the same columns, in the same order."
+            )
+    data = check_finite_matrix(X, "X")
+    expected = getattr(estimator, "n_features_in_", None)
+    if expected is None and hasattr(estimator, "basis_"):
+        expected = np.shape(estimator.basis_)[0]
+    if expected is not None:
+        check_n_features(data.shape[1], int(expected), "X",
+                         f"the {type(estimator).__name__} was fitted on")
+    response = check_response(y, data.shape[0])
+    return data, response
+
+
 def _full_data_fit(estimator, X, y):
     """Coordinates for the resamples, the fitted subspace estimator and the lift."""
-    from .transformer import DirectionLift
+    from .transformer import DirectionLift, _standardise
 
     if isinstance(estimator, DirectionLift):
         if not hasattr(estimator, "lift_"):
             estimator = clone(estimator).fit(X, y)
         check_is_fitted(estimator, "lift_")
-        coordinates = (X - estimator.mean_) / estimator.scale_
+        coordinates = _standardise(X, estimator.mean_, estimator.scale_)  # as at fit time
         return coordinates, estimator.estimator_, estimator.lift_
     if not hasattr(estimator, "basis_"):
         estimator = clone(estimator).fit(X, y)
