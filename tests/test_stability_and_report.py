@@ -83,3 +83,29 @@ def test_linearity_check_is_quiet_on_gaussian_inputs():
     lift = sl.DirectionLift().fit(problem.X, problem.y)
     assert not lift.linearity_.doubtful
     assert lift.linearity_.curvature < 0.05
+
+
+def test_local_resampling_stability_for_gradient_methods_is_fast_and_comparable():
+    # Redrawing OPG's per-anchor gradients (no refit) must give bootstrap
+    # angles of the same order as refitting: within a factor of 4 of the
+    # refit median, and small for a well-identified direction (< 15 degrees).
+    import time
+
+    rng = np.random.default_rng(31)
+    X = rng.standard_normal((2500, 5))
+    y = np.sin(X[:, 0] + X[:, 1]) + 0.1 * rng.standard_normal(2500)
+    estimator = sl.GradientOuterProduct(dim=1, n_anchors=300, random_state=0).fit(X, y)
+    start = time.perf_counter()
+    local = sl.stability(estimator, X, y, n_boot=100, random_state=0, resample="local",
+                         progress=False)
+    local_seconds = time.perf_counter() - start
+    refit = sl.stability(estimator, X, y, n_boot=8, random_state=0, resample="refit",
+                         progress=False)
+    local_median = local.largest_angle_quantiles()["q50"]
+    refit_median = refit.largest_angle_quantiles()["q50"]
+    assert local.n_boot == 100 and local_median < 15
+    assert refit_median / 4 < local_median < 4 * refit_median
+    assert local_seconds < 10  # 100 replicates of a 5 x 5 eigen-decomposition
+    again = sl.stability(estimator, X, y, n_boot=100, random_state=0, resample="local",
+                         progress=False)
+    np.testing.assert_array_equal(again.angles, local.angles)

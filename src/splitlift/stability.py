@@ -13,6 +13,7 @@ from sklearn.utils.validation import check_is_fitted
 from . import geometry
 from ._progress import parallel_map
 from ._validation import check_finite_matrix, check_n_features, check_response
+from .dimension import uses_local_resampling
 from .lift import LiftMatrix
 
 QUANTILES = (0.05, 0.25, 0.5, 0.75, 0.95)
@@ -74,7 +75,7 @@ class SubspaceStability:
 
 
 def stability(estimator, X, y, n_boot: int = 200, random_state=None, n_jobs=None,
-              progress: bool = True) -> SubspaceStability:
+              progress: bool = True, resample: str = "auto") -> SubspaceStability:
     """Refit on bootstrap resamples and compare each subspace with the full-data one.
 
     Parameters
@@ -95,6 +96,15 @@ def stability(estimator, X, y, n_boot: int = 200, random_state=None, n_jobs=None
         Parallel workers (joblib).
     progress : bool, default True
         A progress line on stderr, shown only when stderr is a terminal.
+    resample : {"auto", "refit", "local"}, default "auto"
+        ``"refit"``: refit on each bootstrap resample. ``"local"``: for
+        estimators built from one term per anchor or row (OPG, ADE), redraw
+        the fitted estimator's terms instead of refitting, which costs one
+        small eigen-decomposition per replicate; it reflects the variation of
+        the average over anchors or rows, not that of each local fit, so it
+        can understate the spread. ``"auto"``: local above
+        :data:`splitlift.dimension.LOCAL_RESAMPLING_MIN_ROWS` rows where the
+        estimator offers it, refit otherwise (as ``dim="auto"``'s ladle).
 
     Returns
     -------
@@ -125,16 +135,22 @@ def stability(estimator, X, y, n_boot: int = 200, random_state=None, n_jobs=None
     template = clone(inner).set_params(dim=dim) if dim else None
     seeds = check_random_state(random_state).randint(0, 2**31 - 1, size=n_boot)
 
+    local = uses_local_resampling(resample, inner, X.shape[0])
+
     def one(seed):
-        rows = np.random.RandomState(seed).randint(0, X.shape[0], X.shape[0])
         if template is None:
             return None
+        if local:
+            redrawn = inner._resampled_directions(np.random.RandomState(seed))[:, :dim]
+            return np.linalg.qr(redrawn)[0]
+        rows = np.random.RandomState(seed).randint(0, X.shape[0], X.shape[0])
         try:
             return clone(template).fit(coordinates[rows], y[rows]).basis_
         except ValueError:
             return None
 
-    results = parallel_map(one, seeds, n_boot, "bootstrap", n_jobs, progress)
+    # local replicates are cheap: workers would cost more than they save
+    results = parallel_map(one, seeds, n_boot, "bootstrap", 1 if local else n_jobs, progress)
     fitted = [b for b in results if b is not None] if dim else []
     if dim and len(fitted) < n_boot / 2:
         raise ValueError(
