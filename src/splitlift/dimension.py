@@ -18,6 +18,7 @@ from sklearn.base import BaseEstimator, clone
 from sklearn.utils import check_random_state
 
 from . import geometry
+from ._tables import html_table, json_ready, text_table
 from .moments import Whitening
 
 
@@ -40,22 +41,49 @@ class DimensionTest:
     rows: list[dict] = field(default_factory=list)
 
     def to_dict(self) -> dict:
-        return asdict(self)
+        """Plain dictionary; strict JSON (NaN and infinities become None)."""
+        return json_ready(asdict(self))
+
+    def table_rows(self) -> list[dict]:
+        """One row per candidate dimension, with the question asked and the decision."""
+        tested = any(row.get("p_value") is not None for row in self.rows)
+        out = []
+        for row in self.rows:
+            k = row["k"]
+            if tested:
+                question = ("y depends on no direction of X" if k == 0 else
+                            f"y depends on at most {k} direction{'s' if k > 1 else ''}")
+                decision = (f"kept: dimension {k}" if k == self.chosen
+                            else "rejected" if k < self.chosen else "")
+            else:
+                question = f"{k} direction{'s' if k != 1 else ''}"
+                decision = f"lowest: dimension {k}" if k == self.chosen else ""
+            out.append({**row, "question": question, "decision": decision,
+                        "evidence": row.get("df", row.get("null_draws"))})
+        return out
+
+    def _columns(self) -> list[tuple[str, str, str]]:
+        tested = any(row.get("p_value") is not None for row in self.rows)
+        if tested:
+            draws = "null_draws" in (self.rows[0] if self.rows else {})
+            return [("question", "hypothesis", "s"), ("statistic", "statistic", ".4g"),
+                    ("evidence", "null draws" if draws else "df", "d"),
+                    ("p_value", "p-value", ".3g"), ("decision", "decision", "s")]
+        columns = [("question", "candidate", "s"), ("criterion", "criterion", ".4g")]
+        if any(row.get("std") is not None for row in self.rows):
+            columns.append(("std", "spread", ".3g"))
+        return columns + [("decision", "decision", "s")]
 
     def __str__(self) -> str:
-        columns = [c for c in ("k", "statistic", "df", "null_draws", "p_value", "criterion",
-                               "std") if any(row.get(c) is not None for row in self.rows)]
-        lines = [f"dimension rule: {self.rule} -> dim = {self.chosen}",
-                 "  " + "".join(f"{c:>12}" for c in columns)]
-        for row in self.rows:
-            cells = []
-            for column in columns:
-                value = row.get(column)
-                cells.append(f"{'-':>12}" if value is None else
-                             f"{value:>12d}" if isinstance(value, int) else f"{value:>12.4g}")
-            mark = "  <" if row["k"] == self.chosen else ""
-            lines.append("  " + "".join(cells) + mark)
-        return "\n".join(lines)
+        heading = f"dimension {self.chosen}, chosen by {self.rule}"
+        return heading + "\n" + text_table(self.table_rows(), self._columns())
+
+    def __repr__(self) -> str:
+        return f"<DimensionTest: {self.rule}; dimension {self.chosen}, {len(self.rows)} rows>"
+
+    def _repr_html_(self) -> str:
+        return html_table(self.table_rows(), self._columns(),
+                          caption=f"dimension {self.chosen}, chosen by {self.rule}")
 
 
 def _check_alpha(alpha) -> float:

@@ -18,6 +18,7 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 from .estimators import SlicedInverse
 from .lift import LiftMatrix
 from .linearity import check_linearity
+from .loadings import loadings_frame
 from .moments import column_location_scale
 
 
@@ -77,6 +78,8 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
     mean_, scale_ : ndarray of shape (n_features_in_,)
         Standardisation; zeros and ones when ``standardize=False``.
     n_samples_fit_ : int
+    loadings_, standardised_loadings_ : pandas.DataFrame
+        Directions x features tables of the estimated subspace, by name.
     linearity_ : splitlift.linearity.LinearityCheck
         How far the standardised inputs are from the moment methods'
         linearity condition, along the estimated subspace.
@@ -263,6 +266,27 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         from .report import LiftReport
 
         return LiftReport.from_direction_lift(self, reference, stability)
+
+    @property
+    def loadings_(self):
+        """Directions x features table (DataFrame) of the estimated subspace, inputs as given.
+
+        One row per estimated direction, of unit length with its largest
+        loading positive; columns named after the features. Coefficients on
+        the inputs in their own units: compare across features with
+        ``standardised_loadings_``.
+        """
+        check_is_fitted(self, "lift_")
+        return loadings_frame(self.subspace_basis_, getattr(self, "feature_names_in_", None),
+                              scale=self.scale_)
+
+    @property
+    def standardised_loadings_(self):
+        """The directions' weights per standard deviation of each feature (unit length)."""
+        check_is_fitted(self, "lift_")
+        spread = self.estimator_._feature_scale
+        return loadings_frame(self.subspace_basis_, getattr(self, "feature_names_in_", None),
+                              scale=1.0 / np.where(spread > 0, spread, 1.0))
 
     @property
     def _n_features_out(self) -> int:

@@ -11,12 +11,14 @@ from sklearn.utils._param_validation import HasMethods, Interval, StrOptions
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from .._validation import check_dim, check_sample_count
+from ..loadings import loadings_frame
 from ..dimension import RULES, resolve_rule
 from ..moments import (
     CollinearityWarning,
     Whitening,
     _is_discrete,
     check_slice_sizes,
+    column_location_scale,
     constant_columns,
     power_of_two_scale,
     slice_response,
@@ -66,6 +68,8 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         0 (no detectable structure; ``basis_`` then has no columns).
     dim_test_ : splitlift.dimension.DimensionTest or None
         The table of the dimension rule when ``dim="auto"``.
+    loadings_, standardised_loadings_ : pandas.DataFrame
+        Directions x features tables of ``basis_`` (see the properties).
     fit_warnings_ : list of str
         Reasons, found while fitting, to doubt this estimate (each also
         issued as an :class:`EstimationWarning`); empty when none.
@@ -133,7 +137,33 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         self.basis_ = (np.linalg.qr(directions[:, :dim])[0] if dim
                        else np.zeros((directions.shape[0], 0)))
         self.fit_warnings_ = self._quality_warnings(X, y)
+        self._feature_scale = column_location_scale(X / self.column_scale_)[1] * \
+            self.column_scale_
         return self
+
+    @property
+    def loadings_(self):
+        """Directions x features table (DataFrame) of ``basis_``, inputs as given.
+
+        Each row is a direction of unit length with its largest loading
+        positive; columns are named after the features (``x0, x1, ...`` when
+        the data had no names). See also ``standardised_loadings_``.
+        """
+        check_is_fitted(self, "basis_")
+        return loadings_frame(self.basis_, getattr(self, "feature_names_in_", None))
+
+    @property
+    def standardised_loadings_(self):
+        """``loadings_`` per standard deviation of each feature: comparable across units.
+
+        Direction ``β`` acts on the standardised column ``x_j / sd_j`` with
+        weight ``β_j sd_j``; these weights, scaled to unit length, show which
+        features matter whatever their units.
+        """
+        check_is_fitted(self, "basis_")
+        return loadings_frame(self.basis_, getattr(self, "feature_names_in_", None),
+                              scale=1.0 / np.where(self._feature_scale > 0,
+                                                   self._feature_scale, 1.0))
 
     def _scale_safe_decomposition(self, X, y):
         """Eigen-decompose, first bringing columns near the float limits to unit size.
