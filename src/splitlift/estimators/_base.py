@@ -11,8 +11,8 @@ from sklearn.utils._param_validation import HasMethods, Interval, StrOptions
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from .._validation import check_dim, check_sample_count
-from ..loadings import loadings_frame
 from ..dimension import RULES, resolve_rule
+from ..loadings import loadings_frame
 from ..moments import (
     CollinearityWarning,
     Whitening,
