@@ -12,6 +12,7 @@ from sklearn.utils.validation import check_is_fitted
 
 from . import geometry
 from ._progress import parallel_map
+from ._tables import html_table, text_table
 from ._validation import check_finite_matrix, check_n_features, check_response
 from .dimension import uses_local_resampling
 from .lift import LiftMatrix
@@ -62,16 +63,25 @@ class SubspaceStability:
             "leakage": self.leakage_quantiles(),
         }
 
+    def _table(self):
+        rows = [{"measure": "largest angle (degrees)", **self.largest_angle_quantiles()},
+                {"measure": "off-subspace weight of the lift", **self.leakage_quantiles()}]
+        quantiles = [(key, key, ".4g") for key in self.largest_angle_quantiles()]
+        return rows, [("measure", "across resamples", "s"), *quantiles]
+
+    def _caption(self) -> str:
+        return f"bootstrap stability ({self.n_boot} resamples, {self.n_failed} failed)"
+
     def __str__(self) -> str:
-        angles = self.largest_angle_quantiles()
-        leak = self.leakage_quantiles()
-        header = "".join(f"{name:>9}" for name in angles)
-        return "\n".join([
-            f"bootstrap stability ({self.n_boot} resamples, {self.n_failed} failed)",
-            f"  {'':<26}{header}",
-            f"  {'largest angle (degrees)':<26}" + "".join(f"{v:>9.2f}" for v in angles.values()),
-            f"  {'leakage of the lift':<26}" + "".join(f"{v:>9.4f}" for v in leak.values()),
-        ])
+        return self._caption() + "\n" + text_table(*self._table())
+
+    def __repr__(self) -> str:
+        median = self.largest_angle_quantiles()["q50"]
+        return (f"<SubspaceStability: dim {self.dim}, {self.n_boot} resamples, median largest "
+                f"angle {median:.2f} degrees>")
+
+    def _repr_html_(self) -> str:
+        return html_table(*self._table(), caption=self._caption())
 
 
 def stability(estimator, X, y, n_boot: int = 200, random_state=None, n_jobs=None,

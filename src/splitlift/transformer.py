@@ -78,6 +78,10 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
     mean_, scale_ : ndarray of shape (n_features_in_,)
         Standardisation; zeros and ones when ``standardize=False``.
     n_samples_fit_ : int
+    lifted_extent_ : float
+        Sum over the lift's directions of the training data's extent along
+        them: the clock rate of a STIT tree's root cell (``1 / lifted_extent_``
+        is the expected time of its first cut).
     loadings_, standardised_loadings_ : pandas.DataFrame
         Directions x features tables of the estimated subspace, by name.
     linearity_ : splitlift.linearity.LinearityCheck
@@ -172,6 +176,8 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
             input_scale=self.scale_ if self.standardize else None,
         )
         self.output_matrix_ = self.lift_.output_matrix()
+        # the STIT clock rate of the root cell: sets the scale of a suggested lifetime
+        self.lifted_extent_ = float(np.sum(np.ptp(standardised @ self.lift_.matrix.T, axis=0)))
         self.n_samples_fit_ = X.shape[0]
         self.linearity_ = check_linearity(standardised, self.subspace_basis_)
         return self
