@@ -6,6 +6,7 @@ Small pure functions with their input checks at the top and no state.
 from __future__ import annotations
 
 import numpy as np
+from scipy import linalg, stats
 
 from ._validation import check_basis, check_finite_matrix
 
@@ -30,10 +31,9 @@ def orthonormal_complement(basis: np.ndarray) -> np.ndarray:
 
 
 def random_rotation(dim: int, generator) -> np.ndarray:
-    """A Haar-distributed orthogonal (dim, dim) matrix (QR of a Gaussian, signs fixed).
+    """A Haar-distributed orthogonal (dim, dim) matrix, from :data:`scipy.stats.ortho_group`.
 
-    ``generator`` is a numpy ``Generator`` or ``RandomState``; fixing the signs
-    of R's diagonal makes the distribution exactly Haar (Mezzadri 2007).
+    ``generator`` is a numpy ``Generator`` or ``RandomState``.
 
     Examples
     --------
@@ -42,8 +42,9 @@ def random_rotation(dim: int, generator) -> np.ndarray:
     >>> bool(np.allclose(Q @ Q.T, np.eye(3)))
     True
     """
-    q, r = np.linalg.qr(generator.standard_normal((dim, dim)))
-    return q * np.sign(np.diag(r))
+    if dim == 1:  # ortho_group needs dim >= 2; the Haar measure on O(1) is a random sign
+        return np.array([[1.0 if generator.random() < 0.5 else -1.0]])
+    return stats.ortho_group.rvs(dim, random_state=generator)
 
 
 def principal_angles(U, V) -> np.ndarray:
@@ -62,10 +63,10 @@ def principal_angles(U, V) -> np.ndarray:
 
     Notes
     -----
-    With orthonormal bases ``Q_U, Q_V`` the cosines are the singular values of
-    ``Q_U^T Q_V``. Small angles are recovered from the sines, the singular
-    values of ``Q_V - Q_U Q_U^T Q_V``, which keeps full accuracy near zero
-    (Björck & Golub 1973; Knyazev & Argentati 2002).
+    The inputs are checked and orthonormalised here (safely at any
+    magnitude, refusing complex or rank-deficient sets); the angles come from
+    :func:`scipy.linalg.subspace_angles`, which uses cosines for large angles
+    and sines for small ones (Björck & Golub 1973; Knyazev & Argentati 2002).
 
     References
     ----------
@@ -81,16 +82,7 @@ def principal_angles(U, V) -> np.ndarray:
     """
     left = check_basis(U, "U")
     right = check_basis(V, "V", n_features=left.shape[0])
-    if left.shape[1] < right.shape[1]:
-        left, right = right, left
-    cross = left.T @ right
-    cosines = np.clip(np.linalg.svd(cross, compute_uv=False), 0.0, 1.0)
-    residual = right - left @ cross
-    sines = np.clip(np.linalg.svd(residual, compute_uv=False), 0.0, 1.0)
-    # cosines come largest first and sines largest first: align both to
-    # ascending angles, take each angle from whichever is better conditioned
-    ascending = np.where(cosines**2 > 0.5, np.arcsin(sines[::-1]), np.arccos(cosines))
-    return ascending[::-1]
+    return linalg.subspace_angles(left, right)
 
 
 #: Relative singular-value tolerance below which unit directions count as dependent.
