@@ -1,27 +1,31 @@
-"""Parallel map with a progress line, shared by the batch entry points."""
+"""Parallel map with a progress bar (tqdm), shared by the batch entry points."""
 
 from __future__ import annotations
 
-import sys
 from collections.abc import Callable, Iterable
 
 from joblib import Parallel, delayed
 
 
+def progress_bar(total: int, label: str, enabled: bool = True):
+    """A tqdm bar with elapsed time and ETA, in terminals and notebooks.
+
+    ``enabled=False`` hides it; otherwise tqdm shows it only where it can be
+    drawn (a terminal or a notebook), so logs and pipes stay clean.
+    """
+    from tqdm.auto import tqdm
+
+    return tqdm(total=total, desc=label, disable=None if enabled else True, leave=False,
+                dynamic_ncols=True)
+
+
 def parallel_map(function: Callable, items: Iterable, total: int, label: str,
                  n_jobs=None, progress: bool = True) -> list:
-    """``[function(item) for item in items]`` in parallel (joblib), in input order.
-
-    A ``label k/total`` line is redrawn on stderr as results arrive, only when
-    ``progress`` is true and stderr is a terminal (so logs and pipes stay clean).
-    """
-    show = progress and sys.stderr.isatty()
+    """``[function(item) for item in items]`` in parallel (joblib), in input order."""
     results = []
     jobs = Parallel(n_jobs=n_jobs, return_as="generator")(delayed(function)(i) for i in items)
-    for count, result in enumerate(jobs, 1):
-        results.append(result)
-        if show:
-            sys.stderr.write(f"\r{label} {count}/{total}")
-    if show:
-        sys.stderr.write("\n")
+    with progress_bar(total, label, progress) as bar:
+        for result in jobs:
+            results.append(result)
+            bar.update(1)
     return results
