@@ -71,6 +71,7 @@ def workspace(tmp_path_factory) -> Path:
     good.assign(flag=good["a"] > 0).to_csv(folder / "bool_feature.csv", index=False)
     good.assign(y=1.0).to_csv(folder / "constant_target.csv", index=False)
     good.drop(columns="e").to_csv(folder / "fewer_columns.csv", index=False)
+    (folder / "repeated_header.csv").write_text("a,b,a,y\n" + "1,2,3,4\n" * 30)
     (folder / "broken.json").write_text("[{\"a\": 1,")
     (folder / "broken.parquet").write_bytes(b"PAR1 not really")
     (folder / "sheet.xlsx").write_bytes(b"PK\x03\x04 spreadsheet")
@@ -216,6 +217,10 @@ CASES = [
      ["single column", "';'", "--sep ';'"]),
     ("data-tab-in-csv", ["fit", "tabbed.csv", "--target", "y"] + OUT, DATA,
      ["single column", "tab", "--sep '\\t'"]),
+    ("data-repeated-header", ["fit", "repeated_header.csv", "--target", "y"] + OUT, DATA,
+     ["['a'] more than once", "own name"]),
+    ("ade-dim-two-in-option-terms", FIT + OUT + ["--method", "ade", "--dim", "2"], DATA,
+     ["--dim 2", "--slices"]),
     ("data-broken-json", ["fit", "broken.json", "--target", "y"] + OUT, DATA,
      ["broken.json", "not a readable JSON file"]),
     ("data-broken-parquet", ["fit", "broken.parquet", "--target", "y"] + OUT, DATA,

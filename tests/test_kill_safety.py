@@ -290,3 +290,22 @@ def test_killed_console_script_leaves_no_mix(tmp_path):
         stored = sl.LiftMatrix.load(tmp_path / "lift.npz").metadata["report_text"]
         assert (tmp_path / "report.txt").read_text() == stored + "\n"
     assert temporaries(tmp_path) == []
+
+
+def _write_many(folder, tag, count):
+    for _ in range(count):
+        write_result(folder, tag)
+    os._exit(0)
+
+
+def test_concurrent_results_in_the_same_folder_never_mix(tmp_path):
+    """Two processes publishing results to the same paths: one wins whole, never a mix."""
+    context = multiprocessing.get_context("fork")
+    writers = [context.Process(target=_write_many, args=(tmp_path, tag, 15))
+               for tag in ("first", "second")]
+    for writer in writers:
+        writer.start()
+    for writer in writers:
+        writer.join()
+        assert writer.exitcode == 0
+    assert result_state(tmp_path) in ("first", "second") and temporaries(tmp_path) == []

@@ -33,6 +33,7 @@ from __future__ import annotations
 import argparse
 import contextlib
 import os
+import re
 import signal
 import sys
 import threading
@@ -207,7 +208,7 @@ def main(argv: list[str] | None = None) -> int:
         _say(command, "error", error)
         return EXIT_USAGE
     except (ValueError, OSError, ImportError) as error:
-        _say(command, "error", error)
+        _say(command, "error", _in_command_line_terms(str(error)) if command == "fit" else error)
         return EXIT_DATA_ERROR
     except MemoryError:
         _say(command, "error", "out of memory; use fewer rows or features, or a larger machine")
@@ -225,6 +226,21 @@ def main(argv: list[str] | None = None) -> int:
              f"{type(error).__name__}: {error} (a bug in splitlift: please report it with the "
              "command line; SPLITLIFT_TRACEBACK=1 shows the traceback)")
         return EXIT_INTERNAL
+
+
+#: Library parameter names in messages, and the options that set them on the command line.
+_OPTION_NAMES = [(re.compile(r"\bn_slices(?:=(\d+)|\b)"), "--slices"),
+                 (re.compile(r"\bdim=(\d+|'auto')"), "--dim"),
+                 (re.compile(r"\bcomplement_weight(?:=(\S+?)|\b)(?=[\s,;.)]|$)"),
+                  "--complement-weight")]
+
+
+def _in_command_line_terms(message: str) -> str:
+    """A library message with parameter names replaced by the options that set them."""
+    for pattern, option in _OPTION_NAMES:
+        message = pattern.sub(lambda m, o=option: o if m.group(1) is None else
+                              f"{o} {m.group(1)}", message)
+    return message
 
 
 def _say(command: str, kind: str, message) -> None:

@@ -120,9 +120,22 @@ def read_table(path, sep: str | None = None):
             hint = _separator_hint(str(table.columns[0]), separator)
             if hint:
                 raise ValueError(f"{source} reads as a single column{hint}")
+        _refuse_repeated_names(source, separator)
     if len(table) == 0:
         raise ValueError(f"{source} has a header but no data rows; add rows or check the file.")
     return table
+
+
+def _refuse_repeated_names(source: Path, separator: str) -> None:
+    """pandas renames a repeated header name ('a' -> 'a.1'); say so instead."""
+    import pandas as pd
+
+    header = [str(name) for name in pd.read_csv(source, sep=separator, header=None, nrows=1,
+                                                dtype=str).iloc[0]]
+    repeated = sorted({name for name in header if header.count(name) > 1})
+    if repeated:
+        raise ValueError(f"{source} names the column(s) {repeated} more than once in its header; "
+                         "give every column its own name.")
 
 
 def _read_or_explain(reader, source: Path, kind: str, **options):
