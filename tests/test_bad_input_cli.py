@@ -274,7 +274,7 @@ CASES = [
     ("lift-foreign", ["transform", "foreign.npz", "good.csv", "--out", "t.csv"], DATA,
      ["no metadata"]),
     ("lift-names-string", ["transform", "names_string.npz", "good.csv", "--out", "t.csv"], DATA,
-     ["'feature_names' should be null or a list of strings"]),
+     ["'feature_names' should be null or a list of distinct strings"]),
     ("lift-names-numbers", ["transform", "names_numbers.npz", "good.csv", "--out", "t.csv"],
      DATA, ["'feature_names'"]),
     ("lift-info-list", ["transform", "info_list.npz", "good.csv", "--out", "t.csv"], DATA,

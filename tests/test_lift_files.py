@@ -114,6 +114,7 @@ def _rewrite_metadata(path, change):
     (lambda m: m.update(feature_names="abcde"), "'feature_names' should be null or a list"),
     (lambda m: m.update(feature_names={"a": 1}), "'feature_names' should be null or a list"),
     (lambda m: m.update(feature_names=[1, 2, 3, 4, 5]), "'feature_names' should be null"),
+    (lambda m: m.update(feature_names=list("abcda")), "should be null or a list of distinct"),
     (lambda m: m.update(info=[1, 2]), "'info' should be an object"),
     (lambda m: m.update(info="note"), "'info' should be an object"),
     (lambda m: m.update(info=None), "'info' should be an object"),

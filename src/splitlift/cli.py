@@ -194,7 +194,8 @@ def main(argv: list[str] | None = None) -> int:
     try:
         arguments = parser.parse_args(argv)
     except SystemExit as stop:  # argparse exits 2 on usage errors, 0 on --help
-        return stop.code if isinstance(stop.code, int) else EXIT_USAGE
+        return EXIT_OK if stop.code is None else stop.code if isinstance(stop.code, int) else (
+            EXIT_USAGE)
     command = arguments.command
     handler = globals()[f"_run_{command}"]
     try:
@@ -228,19 +229,18 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_INTERNAL
 
 
-#: Library parameter names in messages, and the options that set them on the command line.
-_OPTION_NAMES = [(re.compile(r"\bn_slices(?:=(\d+)|\b)"), "--slices"),
-                 (re.compile(r"\bdim=(\d+|'auto')"), "--dim"),
-                 (re.compile(r"\bcomplement_weight(?:=(\S+?)|\b)(?=[\s,;.)]|$)"),
-                  "--complement-weight")]
+#: Library parameter names in fit's messages, and the options that set them.
+_OPTION_NAMES = {"n_slices": "--slices", "dim": "--dim", "complement_weight": "--complement-weight"}
+_PARAMETER = re.compile(rf"\b({'|'.join(_OPTION_NAMES)})(?:=([^\s,;)]*[^\s,;).]))?(?!\w)")
 
 
 def _in_command_line_terms(message: str) -> str:
     """A library message with parameter names replaced by the options that set them."""
-    for pattern, option in _OPTION_NAMES:
-        message = pattern.sub(lambda m, o=option: o if m.group(1) is None else
-                              f"{o} {m.group(1)}", message)
-    return message
+    def option(match) -> str:
+        name, value = match.groups()
+        return _OPTION_NAMES[name] + ("" if value is None else f" {value}")
+
+    return _PARAMETER.sub(option, message)
 
 
 def _say(command: str, kind: str, message) -> None:
@@ -350,8 +350,11 @@ def _check_output_place(option: str, path) -> None:
     target = Path(path)
     if target.is_dir():
         raise IsADirectoryError(f"{option} {path} is a folder; give a file name (inside it)")
-    if not target.absolute().parent.is_dir():
+    folder = target.absolute().parent
+    if not folder.is_dir():
         raise FileNotFoundError(f"the folder of {option} {path} does not exist; create it first")
+    if not os.access(folder, os.W_OK | os.X_OK):
+        raise PermissionError(f"the folder of {option} {path} is not writable; choose another")
 
 
 def _check_plot_folder(path) -> None:

@@ -184,9 +184,9 @@ def index_like_columns(table) -> list[str]:
         column = table[name]
         if not is_integer_dtype(column) or not column.is_unique:
             continue
-        values = column.to_numpy()
-        counting = np.array_equal(np.sort(values), np.arange(values.size)) or np.array_equal(
-            np.sort(values), np.arange(1, values.size + 1))
+        ordered = np.sort(column.to_numpy())
+        counting = (ordered.size > 0 and ordered[0] in (0, 1)
+                    and np.array_equal(ordered - ordered[0], np.arange(ordered.size)))
         if _UNNAMED_COLUMN.match(str(name)) or (str(name).lower() == "index" and counting):
             found.append(str(name))
     return found

@@ -246,7 +246,11 @@ class AtomicResult:
                 )
             remove_stale_temporaries(folder)
             staging = folder / self._token
-            staging.mkdir()
+            try:
+                staging.mkdir()
+            except PermissionError:
+                raise PermissionError(f"cannot write into {folder}: permission denied; choose a "
+                                      "folder you can write to.") from None
             if self._staging:  # a secondary staging folder says where the journal will be
                 primary = next(iter(self._staging.values()))
                 (staging / _PRIMARY).write_text(str(primary), encoding="utf-8")
@@ -474,9 +478,8 @@ def _is_number(value) -> bool:
 _METADATA_TYPES: dict[str, tuple[str, Callable[[object], bool]]] = {
     "n_features": ("a positive integer", lambda v: _is_integer(v) and v > 0),
     "n_directions": ("a positive integer", lambda v: _is_integer(v) and v > 0),
-    "feature_names": ("null or a list of strings",
-                      lambda v: v is None or (isinstance(v, list)
-                                              and all(isinstance(n, str) for n in v))),
+    "feature_names": ("null or a list of distinct strings", lambda v: v is None or (
+        isinstance(v, list) and all(isinstance(n, str) for n in v) and len(set(v)) == len(v))),
     "info": ("an object", lambda v: isinstance(v, dict)),
 }
 _INFO_TYPES: dict[str, tuple[str, Callable[[object], bool]]] = {
