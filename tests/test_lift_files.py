@@ -98,14 +98,14 @@ def test_missing_folder_is_a_clear_error(lift, tmp_path):
 
 
 # ------------------------------------------------ metadata of the wrong JSON type
-def _rewrite_metadata(path, change):
-    """Rewrite a lift file's metadata through ``change(dict)`` (a tampered file)."""
+def _rewrite_lift_file(path, change):
+    """Tamper with a saved lift: ``change(metadata, arrays)`` edits it in place."""
     import json
 
     with np.load(path) as archive:
         contents = {name: archive[name] for name in archive.files}
     metadata = json.loads(contents["metadata"].tobytes().decode())
-    change(metadata)
+    change(metadata, contents)
     contents["metadata"] = np.frombuffer(json.dumps(metadata).encode(), dtype=np.uint8)
     np.savez(path, **contents)
 
@@ -129,22 +129,16 @@ def _rewrite_metadata(path, change):
 def test_metadata_of_the_wrong_type_is_a_lift_file_error(lift, tmp_path, change, words):
     path = tmp_path / "lift.npz"
     lift.save(path)
-    _rewrite_metadata(path, change)
+    _rewrite_lift_file(path, lambda metadata, arrays: change(metadata))
     with pytest.raises(sl.LiftFileError, match=words):
         sl.LiftMatrix.load(path)
 
 
-def test_arrays_that_are_not_real_numbers_are_refused(lift, tmp_path):
+@pytest.mark.parametrize("bad", [np.full((5, 5), "0.1"), np.ones((5, 5)) * (1 + 1j)])
+def test_arrays_that_are_not_real_numbers_are_refused(lift, tmp_path, bad):
     path = tmp_path / "lift.npz"
     lift.save(path)
-    with np.load(path) as archive:
-        contents = {name: archive[name] for name in archive.files}
-    contents["matrix"] = contents["matrix"].astype(str)
-    np.savez(path, **contents)
-    with pytest.raises(sl.LiftFileError, match="not real numbers"):
-        sl.LiftMatrix.load(path)
-    contents["matrix"] = np.ones((5, 5)) * (1 + 1j)
-    np.savez(path, **contents)
+    _rewrite_lift_file(path, lambda metadata, arrays: arrays.update(matrix=bad))
     with pytest.raises(sl.LiftFileError, match="not real numbers"):
         sl.LiftMatrix.load(path)
 

@@ -302,7 +302,7 @@ def _back_up(entry: dict) -> None:
         return
     try:
         os.link(target, backup, follow_symlinks=False)
-    except OSError:  # no hard links on this file system
+    except (OSError, NotImplementedError):  # no hard links here
         shutil.copy2(target, backup, follow_symlinks=False)
 
 
