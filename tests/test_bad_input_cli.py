@@ -209,7 +209,7 @@ CASES = [
     # ---------------------------------------------------------------- data and files (exit 1)
     ("data-missing", ["fit", "absent.csv", "--target", "y"] + OUT, DATA,
      ["absent.csv", "does not exist"]),
-    ("data-is-folder", ["fit", "adir", "--target", "y"] + OUT, DATA, ["adir", "is a folder"]),
+    ("data-is-folder", ["fit", "adir", "--target", "y"] + OUT, DATA, ["adir", "is a directory"]),
     ("data-empty", ["fit", "empty.csv", "--target", "y"] + OUT, DATA, ["empty"]),
     ("data-header-only", ["fit", "header_only.csv", "--target", "y"] + OUT, DATA,
      ["has a header but no data rows"]),
@@ -258,7 +258,7 @@ CASES = [
      ["folder of --out nowhere/lift.npz does not exist", "create it"]),
     ("out-is-folder", FIT + ["--out", "adir"], USAGE, ["--out adir", ".npz"]),
     ("report-is-folder", FIT + OUT + ["--report", "rep.txt"], DATA,
-     ["--report rep.txt is a folder"]),
+     ["--report rep.txt is a directory"]),
     ("plot-is-file", FIT + OUT + ["--plot", "plotfile"], DATA, ["--plot plotfile is a file"]),
     ("plot-parent-missing", FIT + OUT + ["--plot", "no/such/plots"], DATA,
      ["--plot no/such/plots", "does not exist"]),
@@ -287,7 +287,7 @@ CASES = [
      ["not real numbers"]),
     ("lift-wrong-shape", ["transform", "wrong_shape.npz", "good.csv", "--out", "t.csv"], DATA,
      ["disagrees with the metadata"]),
-    ("lift-is-folder", ["report", "folder.npz"], DATA, ["folder.npz is a folder"]),
+    ("lift-is-folder", ["report", "folder.npz"], DATA, ["folder.npz is a directory"]),
     ("transform-data-missing-column", ["transform", "lift.npz", "fewer_columns.csv", "--out",
                                        "t.csv"], DATA, ["lacks the column(s) ['e']"]),
     ("transform-data-text-cell", ["transform", "lift.npz", "text_cell.csv", "--out", "t.csv"],
@@ -295,7 +295,7 @@ CASES = [
     ("transform-data-header-only", ["transform", "lift.npz", "header_only.csv", "--out",
                                     "t.csv"], DATA, ["no data rows"]),
     ("transform-data-folder", ["transform", "lift.npz", "adir", "--out", "t.csv"], DATA,
-     ["adir is a folder"]),
+     ["adir is a directory"]),
     ("report-reference-missing", ["report", "lift.npz", "--reference", "absent.npy"], DATA,
      ["absent.npy", "does not exist"]),
     ("report-reference-broken", ["report", "lift.npz", "--reference", "broken.npy"], DATA,
@@ -308,9 +308,9 @@ CASES = [
     ("score-target-text-cell", ["score", "axes.npy", "--data", "bad_target.csv", "--target",
                                 "y", "--out", "r.csv"], DATA, ["'abc'", "data row 18"]),
     ("score-reference-folder", SCORE + ["--reference", "folder.npy", "--out", "r.csv"], DATA,
-     ["--reference folder.npy is a folder"]),
+     ["--reference folder.npy is a directory"]),
     ("report-reference-folder", ["report", "lift.npz", "--reference", "folder.npy"], DATA,
-     ["folder.npy is a folder"]),
+     ["folder.npy is a directory"]),
 ]
 
 

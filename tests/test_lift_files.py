@@ -144,5 +144,5 @@ def test_arrays_that_are_not_real_numbers_are_refused(lift, tmp_path, bad):
 
 
 def test_a_folder_given_as_lift_file_says_so(tmp_path):
-    with pytest.raises(sl.LiftFileError, match="is a folder"):
+    with pytest.raises(sl.LiftFileError, match="is a directory"):
         sl.LiftMatrix.load(tmp_path)

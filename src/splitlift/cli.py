@@ -341,7 +341,7 @@ def _refuse_overwrites(inputs: list[tuple[str, object]], outputs: list[tuple[str
 def _check_input_file(label: str, path) -> None:
     source = Path(path)
     if source.is_dir():
-        raise IsADirectoryError(f"{label} {source} is a folder, not a file; give the file's path")
+        raise IsADirectoryError(f"{label} {source} is a directory, not a file; give a file's path")
     if not source.is_file():
         raise FileNotFoundError(f"{label} {source} does not exist; check the path")
 
@@ -349,7 +349,7 @@ def _check_input_file(label: str, path) -> None:
 def _check_output_place(option: str, path) -> None:
     target = Path(path)
     if target.is_dir():
-        raise IsADirectoryError(f"{option} {path} is a folder; give a file name (inside it)")
+        raise IsADirectoryError(f"{option} {path} is a directory; give a file name (inside it)")
     folder = target.absolute().parent
     if not folder.is_dir():
         raise FileNotFoundError(f"the folder of {option} {path} does not exist; create it first")

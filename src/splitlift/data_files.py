@@ -90,7 +90,7 @@ def read_table(path, sep: str | None = None):
     source = Path(path)
     if source.is_dir():
         raise IsADirectoryError(
-            f"{source} is a folder, not a data file; give the path of the data file inside it."
+            f"{source} is a directory, not a data file; give the path of the data file inside it."
         )
     if not source.is_file():
         raise FileNotFoundError(f"data file {source} does not exist; check the path.")
@@ -355,7 +355,7 @@ def read_matrix(path) -> np.ndarray:
     """A numeric matrix from .npy or headerless/headed .csv (used for references)."""
     source = Path(path)
     if source.is_dir():
-        raise IsADirectoryError(f"{source} is a folder, not a matrix file; give a .npy or .csv "
+        raise IsADirectoryError(f"{source} is a directory, not a matrix file; give a .npy or .csv "
                                 "file.")
     if not source.is_file():
         raise FileNotFoundError(f"matrix file {source} does not exist; check the path.")

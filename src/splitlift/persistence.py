@@ -117,7 +117,7 @@ def atomic_write(path, write: Callable[[IO[bytes]], None]) -> Path:
             f"cannot write {target}: folder {folder} does not exist; create it first."
         )
     if target.is_dir():
-        raise IsADirectoryError(f"cannot write {target}: it is a folder; give a file name.")
+        raise IsADirectoryError(f"cannot write {target}: it is a directory; give a file name.")
     remove_stale_temporaries(folder)
     temporary = folder / _temporary_name()
     # os.open applies the umask, so the file gets the usual permissions
@@ -428,7 +428,7 @@ def read_lift_file(path, required: tuple[str, ...] = ("matrix",)) -> tuple[dict,
     """
     source = Path(path)
     if source.is_dir():
-        raise LiftFileError(f"{source} is a folder, not a lift file; give the .npz file.")
+        raise LiftFileError(f"{source} is a directory, not a lift file; give the .npz file.")
     if not source.is_file():
         raise LiftFileError(f"lift file {source} does not exist; check the path.")
     try:
