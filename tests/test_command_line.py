@@ -47,3 +47,47 @@ def test_bench_quick_writes_json_and_markdown(tmp_path):
     text = page.read_text()
     assert text.startswith("# Benchmarks") and "splitlift bench --suite speed --quick" in text
     assert "moment methods" in text and "STIT forest" in text
+
+
+def test_ctrl_c_during_score_exits_130_with_one_line(tmp_path):
+    import signal
+    import time
+
+    import numpy as np
+    import pandas as pd
+
+    rng = np.random.default_rng(0)  # synthetic table, large enough to keep scoring busy
+    table = pd.DataFrame(rng.standard_normal((3000, 6)), columns=list("abcdef"))
+    table["y"] = table["a"] * table["b"] + rng.standard_normal(3000)
+    table.to_csv(tmp_path / "data.csv", index=False)
+    np.save(tmp_path / "axes.npy", np.eye(6))
+    starter = ("import sys; from splitlift.cli import main; print('ready', flush=True); "
+               "sys.exit(main(sys.argv[1:]))")
+    child = subprocess.Popen(
+        [sys.executable, "-c", starter, "score", *["axes.npy"] * 30, "--data", "data.csv",
+         "--target", "y", "--out", "ranking.csv"],
+        cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    assert child.stdout.readline().strip() == "ready"  # imports done, main() starting
+    time.sleep(1.0)
+    child.send_signal(signal.SIGINT)
+    _, stderr = child.communicate(timeout=120)
+    assert child.returncode == 130, stderr
+    assert stderr == "splitlift score: interrupted: stopped by Ctrl-C; no partial output was left\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["axes.npy", "data.csv"]
+
+
+def test_exit_codes_separate_usage_from_data_errors(tmp_path):
+    """--dim 0 is never valid (usage, 2); --dim 20 fails only for data with fewer columns (1)."""
+    import numpy as np
+    import pandas as pd
+
+    rng = np.random.default_rng(1)
+    table = pd.DataFrame(rng.standard_normal((100, 5)), columns=list("abcde"))
+    table.assign(y=table["a"]).to_csv(tmp_path / "data.csv", index=False)
+    never = run("fit", "data.csv", "--target", "y", "--dim", "0", "--out", "l.npz", cwd=tmp_path)
+    too_many = run("fit", "data.csv", "--target", "y", "--dim", "20", "--out", "l.npz",
+                   cwd=tmp_path)
+    assert (never.returncode, too_many.returncode) == (2, 1)
+    for result in (never, too_many):
+        assert result.stderr.count("\n") == 1 and "Traceback" not in result.stderr
+    assert run("fit", "--help").returncode == 0

@@ -21,6 +21,8 @@ from .persistence import atomic_write
 EIGENVALUES_FILE = "eigenvalues.png"
 SUFFICIENT_SUMMARY_FILE = "sufficient_summary.png"
 BOOTSTRAP_ANGLES_FILE = "bootstrap_angles.png"
+#: Every file :func:`write_all_plots` may write (a result's plot folder holds some of these).
+PLOT_FILES = (EIGENVALUES_FILE, SUFFICIENT_SUMMARY_FILE, BOOTSTRAP_ANGLES_FILE)
 _DPI = 100
 _CHOSEN_COLOUR = "#1f6f8b"
 _OTHER_COLOUR = "#b8c4cc"
@@ -260,6 +262,14 @@ def write_all_plots(lift_or_estimator, X, y, folder, stability=None) -> list[Pat
     if stability is not None and stability.dim > 0:
         paths.append(plot_bootstrap_angles(stability, target / BOOTSTRAP_ANGLES_FILE))
     return paths
+
+
+def require_matplotlib() -> None:
+    """Raise an ImportError that says how to install matplotlib when it is missing.
+
+    Callers check this before any long computation whose result they plot.
+    """
+    _figure_class()
 
 
 # ------------------------------------------------------------------ helpers
