@@ -25,6 +25,7 @@ from .moments import CollinearityWarning
 from .persistence import LiftFileError
 from .report import LiftReport
 from .scoring import score_candidates
+from .selection import DirectionLiftCV
 from .stability import SubspaceStability, stability
 from .transformer import ApplyLift, DirectionLift
 
@@ -35,6 +36,7 @@ __all__ = [
     "AverageDerivative",
     "CollinearityWarning",
     "DirectionLift",
+    "DirectionLiftCV",
     "GradientOuterProduct",
     "HessianDirections",
     "LiftFileError",

@@ -1,27 +1,31 @@
-"""Parallel map with a progress line, shared by the batch entry points."""
+"""Parallel map with a progress bar, shared by the batch entry points."""
 
 from __future__ import annotations
 
-import sys
 from collections.abc import Callable, Iterable
 
 from joblib import Parallel, delayed
+from tqdm import tqdm
 
 
 def parallel_map(function: Callable, items: Iterable, total: int, label: str,
                  n_jobs=None, progress: bool = True) -> list:
     """``[function(item) for item in items]`` in parallel (joblib), in input order.
 
-    A ``label k/total`` line is redrawn on stderr as results arrive, only when
-    ``progress`` is true and stderr is a terminal (so logs and pipes stay clean).
+    A tqdm progress bar labelled ``label`` advances as results arrive, in any
+    order. With ``progress=True`` it is drawn only when stderr is a terminal
+    (tqdm's ``disable=None``), so logs and pipes stay clean; ``False`` hides it.
+    The results never depend on ``n_jobs``.
     """
-    show = progress and sys.stderr.isatty()
-    results = []
-    jobs = Parallel(n_jobs=n_jobs, return_as="generator")(delayed(function)(i) for i in items)
-    for count, result in enumerate(jobs, 1):
-        results.append(result)
-        if show:
-            sys.stderr.write(f"\r{label} {count}/{total}")
-    if show:
-        sys.stderr.write("\n")
-    return results
+    jobs = Parallel(n_jobs=n_jobs, return_as="generator_unordered")(
+        delayed(_numbered)(function, index, item) for index, item in enumerate(items))
+    results: dict[int, object] = {}
+    with tqdm(total=total, desc=label, disable=None if progress else True, leave=False) as bar:
+        for index, result in jobs:
+            results[index] = result
+            bar.update()
+    return [results[index] for index in range(len(results))]
+
+
+def _numbered(function: Callable, index: int, item) -> tuple[int, object]:
+    return index, function(item)
