@@ -65,6 +65,8 @@ def _build_parser() -> argparse.ArgumentParser:
                      help="subspace dimension (default: auto)")
     fit.add_argument("--complement-weight", type=float, default=0.05, metavar="W",
                      help="weight of the orthogonal complement, in (0, 1) (default 0.05)")
+    fit.add_argument("--keep-inputs", action="store_true",
+                     help="output the inputs, then the lifted directions")
     fit.add_argument("--out", required=True, metavar="LIFT.npz", help="lift file to write")
     fit.add_argument("--report", metavar="FILE", help="also write the report as text")
     fit.add_argument("--plot", metavar="DIR", help="also write diagnostic PNG plots here")
@@ -90,8 +92,25 @@ def _build_parser() -> argparse.ArgumentParser:
     report.add_argument("lift", metavar="LIFT.npz")
     report.add_argument("--reference", metavar="REF.npy")
 
+    evaluate = commands.add_parser(
+        "evaluate", help="compare raw inputs and lifts by cross-validating a forest")
+    evaluate.add_argument("data", metavar="DATA", help="CSV (or Parquet with pyarrow) file")
+    evaluate.add_argument("--target", required=True, metavar="COL", help="response column")
+    evaluate.add_argument("--features", metavar="C1,C2,...",
+                          help="feature columns (default: every column but the target)")
+    evaluate.add_argument("--forest", choices=sorted(EVALUATE_FORESTS), default="rf",
+                          help="downstream forest (default: rf)")
+    evaluate.add_argument("--cv", type=int, default=5, metavar="K", help="folds (default 5)")
+    evaluate.add_argument("--classify", action="store_true",
+                          help="read a numeric target as class labels")
+    evaluate.add_argument("--jobs", type=int, default=1, metavar="N", help="parallel jobs")
+    evaluate.add_argument("--seed", type=int, default=0, help="seed of the folds and forests")
+    evaluate.add_argument("--out", metavar="FILE.csv|FILE.json", help="write the table")
+    evaluate.add_argument("--plot", metavar="FILE.png", help="plot CV error with error bars")
+
     bench = commands.add_parser("bench", help="time splitlift against reference implementations")
-    bench.add_argument("--suite", choices=["speed", "accuracy", "rate", "all"], default="speed")
+    bench.add_argument("--suite", choices=["speed", "accuracy", "rate", "real", "all"],
+                       default="speed")
     bench.add_argument("--quick", action="store_true", help="small sizes, finishes fast")
     bench.add_argument("--json", metavar="FILE", help="also write the results as JSON")
     bench.add_argument("--markdown", metavar="FILE",
@@ -160,7 +179,8 @@ def _run_fit(arguments) -> int:
     table = read_table(arguments.data)
     X, y, names = features_and_target(table, arguments.target, _feature_list(arguments.features))
     estimator = getattr(estimators, METHODS[arguments.method])(dim=arguments.dim)
-    lift = DirectionLift(estimator, complement_weight=arguments.complement_weight)
+    lift = DirectionLift(estimator, complement_weight=arguments.complement_weight,
+                         keep_inputs=arguments.keep_inputs)
     lift.fit(pd.DataFrame(X, columns=names), y)
     text = str(lift.report())
     written = []
@@ -206,7 +226,7 @@ def _run_transform(arguments) -> int:
             f"(it expects {lift.feature_names})."
         )
     lifted = lift.apply(select_columns(table, lift.feature_names))
-    columns = [f"direction_{index}" for index in range(lifted.shape[1])]
+    columns = lift.output_feature_names()  # the names DirectionLift gives in Python
     write_table(arguments.out, columns, lifted)
     print(f"{lifted.shape[0]} rows x {lifted.shape[1]} lifted columns written to {arguments.out}")
     return EXIT_OK
@@ -264,6 +284,62 @@ def _run_report(arguments) -> int:
             angles = np.degrees(principal_angles(lift.subspace_basis, reference))
             print("  angles to estimate        "
                   + ", ".join(f"{a:.2f}" for a in angles) + " degrees (largest first)")
+    return EXIT_OK
+
+
+EVALUATE_FORESTS = {"rf": "random_forest", "et": "extra_trees",
+                    "hgb": "hist_gradient_boosting", "stit": "stit"}
+
+
+def _run_evaluate(arguments) -> int:
+    import json
+
+    import pandas as pd
+
+    from .data_files import features_and_target, read_table
+    from .persistence import atomic_write
+    from .selection import DirectionLiftCV
+
+    suffix = Path(arguments.out).suffix.lower() if arguments.out else None
+    if suffix not in (None, ".csv", ".json"):
+        raise UsageError(f"--out must end in .csv or .json, got {arguments.out}")
+    if arguments.cv < 2:
+        raise UsageError("--cv must be at least 2")
+    _check_output_folder(arguments.out, arguments.plot)
+    table = read_table(arguments.data)
+    X, y, names = features_and_target(table, arguments.target, _feature_list(arguments.features))
+    if arguments.classify:
+        y = y.astype(str)
+    search = DirectionLiftCV(forest=EVALUATE_FORESTS[arguments.forest], cv=arguments.cv,
+                             n_jobs=arguments.jobs, random_state=arguments.seed)
+    search.fit(pd.DataFrame(X, columns=names), y)
+    summary = search.summary()
+    written = []
+    try:
+        if suffix == ".csv":
+            data = summary.to_csv(index=False).encode("utf-8")
+        elif suffix == ".json":
+            data = json.dumps({"verdict": search.verdict_, "chosen": search.best_params_,
+                               "forest": type(search.forest_).__name__,
+                               "folds": search.n_splits_,
+                               "candidates": json.loads(summary.to_json(orient="records"))},
+                              indent=2).encode("utf-8")
+        if suffix is not None:
+            written.append(atomic_write(arguments.out, lambda handle: handle.write(data)))
+        if arguments.plot:
+            from .plots import plot_selection
+
+            written.append(plot_selection(search, arguments.plot))
+    except BaseException:
+        for path in written:  # all or nothing: a failed run leaves no output
+            Path(path).unlink(missing_ok=True)
+        raise
+    shown = summary.assign(**{column: summary[column].map(lambda value: f"{100 * value:+.1f}%")
+                              for column in ("change_vs_raw", "change_se")})
+    print(shown.to_string(index=False, float_format=lambda value: f"{value:.4g}"))
+    print(f"\n{search.verdict_}")
+    for path in written:
+        print(f"written to {path}")
     return EXIT_OK
 
 

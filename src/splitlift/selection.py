@@ -535,6 +535,37 @@ class DirectionLiftCV(TransformerMixin, BaseEstimator):
                     "fewer folds or more rows)."
                 )
 
+    def summary(self):
+        """The comparison as a compact pandas DataFrame, one row per candidate.
+
+        Columns: ``candidate``, ``output_columns``, ``cv_error`` and
+        ``cv_error_sd`` (mean and standard deviation over folds),
+        ``change_vs_raw`` and ``change_se`` (relative change against the raw
+        inputs and its paired standard error), ``within_one_se``, ``chosen``
+        and ``status``. ``DataFrame.attrs["verdict"]`` holds :attr:`verdict_`.
+
+        Returns
+        -------
+        pandas.DataFrame
+        """
+        import pandas as pd
+
+        check_is_fitted(self, "cv_results_")
+        results = self.cv_results_
+        table = pd.DataFrame({
+            "candidate": results["candidate"],
+            "output_columns": results["n_output_features"],
+            "cv_error": results["mean_test_error"],
+            "cv_error_sd": results["std_test_error"],
+            "change_vs_raw": results["change_vs_raw"],
+            "change_se": results["change_vs_raw_se"],
+            "within_one_se": results["within_one_se"],
+            "chosen": np.arange(len(results["candidate"])) == self.best_index_,
+            "status": results["status"],
+        })
+        table.attrs["verdict"] = self.verdict_
+        return table
+
     # ------------------------------------------------------------ transform
     def transform(self, X):
         """Apply the chosen lift (or pass the inputs through).
