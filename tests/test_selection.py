@@ -244,3 +244,25 @@ def test_default_forest_is_a_random_forest_for_the_target_type(rng):
     assert isinstance(numeric.fit(X, X[:, 0]).forest_, RandomForestRegressor)
     labels = np.where(X[:, 0] > 0, "a", "b")
     assert isinstance(numeric.fit(X, labels).forest_, RandomForestClassifier)
+
+
+def test_layers_only_look_down():
+    # The import circle estimators -> dimension -> transformer -> estimators is
+    # gone: the estimators and the dimension rules import nothing that fits a
+    # forest on lifted data, not even inside functions.
+    import ast
+    from pathlib import Path
+
+    package = Path(sl.__file__).parent
+    upper = ("transformer", "selection", "scoring", "forest", "report", "stability")
+    for path in [package / "dimension.py", *sorted((package / "estimators").glob("*.py"))]:
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            if isinstance(node, ast.ImportFrom) and node.module:
+                module = node.module.split(".")[-1]
+                assert module not in upper, f"{path.name} imports {node.module}"
+
+
+def test_cross_validation_dimension_rule_is_reachable_by_name(rng):
+    X, y = ridge_problem(rng, n=200, d=4)
+    estimate = sl.SlicedInverse(dim="auto", dim_rule="cv").fit(X, y)
+    assert estimate.dim_test_.rule.startswith("cross-validation")

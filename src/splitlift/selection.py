@@ -38,6 +38,8 @@ from .lift import LiftMatrix
 from .moments import _is_discrete
 from .transformer import ApplyLift, DirectionLift
 
+__all__ = ["CrossValidatedDimension", "DirectionLiftCV"]
+
 _SEED_BOUND = np.iinfo(np.int32).max
 
 #: Forests known by name: (regressor, classifier).
