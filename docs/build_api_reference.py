@@ -11,7 +11,8 @@ from pathlib import Path
 
 import splitlift
 
-MODULES = ["splitlift.dimension", "splitlift.forest", "splitlift.plots", "splitlift.scoring"]
+MODULES = ["splitlift.dimension", "splitlift.forest", "splitlift.plots", "splitlift.scoring",
+           "splitlift.selection"]
 
 
 def _entry(name: str, obj) -> list[str]:

@@ -5,12 +5,12 @@ import pytest
 
 import splitlift as sl
 from splitlift.dimension import (
-    CrossValidatedDimension,
     LadleEstimator,
     PermutationTest,
     SequentialChiSquare,
     satterthwaite_p_value,
 )
+from splitlift.selection import CrossValidatedDimension
 
 
 def binomial_band(p, repetitions, width=4.0):

@@ -60,7 +60,7 @@ def test_pandas_feature_names_are_kept(problem):
     assert list(lift.feature_names_in_) == list(frame.columns)
     assert lift.lift_.feature_names == list(frame.columns)
     names = lift.get_feature_names_out()
-    assert len(names) == lift.lift_.n_directions and names[0] == "directionlift0"
+    assert len(names) == lift.lift_.n_directions and names[0] == "direction_0"
 
 
 def test_pipeline_and_grid_search_over_lift_and_estimator_parameters(problem):

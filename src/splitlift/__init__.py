@@ -38,6 +38,7 @@ _EXPORTS = {
     "LiftFileError": "persistence",
     "LiftReport": "report",
     "score_candidates": "scoring",
+    "DirectionLiftCV": "selection",
     "SubspaceStability": "stability",
     "stability": "stability",
     "ApplyLift": "transformer",

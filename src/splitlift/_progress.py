@@ -21,11 +21,20 @@ def progress_bar(total: int, label: str, enabled: bool = True):
 
 def parallel_map(function: Callable, items: Iterable, total: int, label: str,
                  n_jobs=None, progress: bool = True) -> list:
-    """``[function(item) for item in items]`` in parallel (joblib), in input order."""
-    results = []
-    jobs = Parallel(n_jobs=n_jobs, return_as="generator")(delayed(function)(i) for i in items)
+    """``[function(item) for item in items]`` in parallel (joblib), in input order.
+
+    The bar advances as results arrive, in any order; the results never
+    depend on ``n_jobs``.
+    """
+    jobs = Parallel(n_jobs=n_jobs, return_as="generator_unordered")(
+        delayed(_numbered)(function, index, item) for index, item in enumerate(items))
+    results: dict[int, object] = {}
     with progress_bar(total, label, progress) as bar:
-        for result in jobs:
-            results.append(result)
+        for index, result in jobs:
+            results[index] = result
             bar.update(1)
-    return results
+    return [results[index] for index in range(len(results))]
+
+
+def _numbered(function: Callable, index: int, item) -> tuple[int, object]:
+    return index, function(item)

@@ -150,6 +150,8 @@ def _build_parser() -> argparse.ArgumentParser:
                      help="weight of the orthogonal complement, in (0, 1) (default 0.05)")
     fit.add_argument("--seed", type=int, default=0,
                      help="seed of every random choice (dimension rules, bootstrap; default 0)")
+    fit.add_argument("--keep-inputs", action="store_true",
+                     help="output the inputs, then the lifted directions")
     fit.add_argument("--out", required=True, metavar="LIFT.npz", help="lift file to write")
     fit.add_argument("--report", metavar="FILE",
                      help="also write the report: .txt or .md (text) or .json")
@@ -179,8 +181,25 @@ def _build_parser() -> argparse.ArgumentParser:
     report.add_argument("lift", metavar="LIFT.npz")
     report.add_argument("--reference", metavar="REF.npy")
 
+    evaluate = commands.add_parser(
+        "evaluate", help="compare raw inputs and lifts by cross-validating a forest")
+    evaluate.add_argument("data", metavar="DATA", help="CSV (or Parquet with pyarrow) file")
+    evaluate.add_argument("--target", required=True, metavar="COL", help="response column")
+    evaluate.add_argument("--forest", choices=sorted(EVALUATE_FORESTS), default="rf",
+                          help="downstream forest (default: rf)")
+    evaluate.add_argument("--cv", type=int, default=5, metavar="K", help="folds (default 5)")
+    evaluate.add_argument("--classify", action="store_true",
+                          help="read a numeric target as class labels")
+    evaluate.add_argument("--jobs", type=int, default=1, metavar="N", help="parallel jobs")
+    evaluate.add_argument("--seed", type=int, default=0, help="seed of the folds and forests")
+    _add_table_options(evaluate)
+    evaluate.add_argument("--out", metavar="FILE", help="write the table (.csv, .tsv, .json, "
+                                                        ".parquet)")
+    evaluate.add_argument("--plot", metavar="FILE.png", help="plot CV error with error bars")
+
     bench = commands.add_parser("bench", help="time splitlift against reference implementations")
-    bench.add_argument("--suite", choices=["speed", "accuracy", "rate", "all"], default="speed")
+    bench.add_argument("--suite", choices=["speed", "accuracy", "rate", "real", "all"],
+                       default="speed")
     bench.add_argument("--quick", action="store_true", help="small sizes, finishes fast")
     bench.add_argument("--json", metavar="FILE", help="also write the results as JSON")
     bench.add_argument("--markdown", metavar="FILE",
@@ -498,7 +517,7 @@ def _fit_lift(arguments):
         estimator.set_params(random_state=arguments.seed)
     _check_rows_per_slice(y, estimator, arguments.method)
     lift = DirectionLift(estimator, complement_weight=arguments.complement_weight,
-                         random_state=arguments.seed)
+                         keep_inputs=arguments.keep_inputs, random_state=arguments.seed)
     lift.fit(pd.DataFrame(X, columns=names), y)
     return X, y, lift
 
@@ -563,7 +582,7 @@ def _run_transform(arguments) -> int:
             f"(it expects {lift.feature_names})."
         )
     lifted = lift.apply(select_columns(table, lift.feature_names))
-    columns = [f"direction_{index}" for index in range(lifted.shape[1])]
+    columns = lift.output_feature_names()  # the names DirectionLift gives in Python
     write_table(arguments.out, pd.DataFrame(lifted, columns=columns))
     print(f"{lifted.shape[0]} rows x {lifted.shape[1]} lifted columns written to {arguments.out}")
     return EXIT_OK
@@ -642,6 +661,65 @@ def _run_report(arguments) -> int:
             angles = np.degrees(principal_angles(lift.subspace_basis, reference))
             print("  angles to estimate        "
                   + ", ".join(f"{a:.2f}" for a in angles) + " degrees (largest first)")
+    return EXIT_OK
+
+
+EVALUATE_FORESTS = {"rf": "random_forest", "et": "extra_trees",
+                    "hgb": "hist_gradient_boosting", "stit": "stit"}
+
+
+def _run_evaluate(arguments) -> int:
+    import pandas as pd
+
+    from .data_files import table_bytes
+    from .persistence import AtomicResult, atomic_write
+    from .selection import DirectionLiftCV
+
+    if arguments.cv < 2:
+        raise UsageError("--cv must be at least 2")
+    if arguments.jobs is not None and arguments.jobs == 0:
+        raise UsageError("--jobs must be a positive number of workers, or -1 for all cores")
+    _check_data_suffix("DATA", arguments.data, arguments.sep)
+    if arguments.out:
+        _check_table_output("--out", arguments.out)
+    if arguments.plot:
+        _check_suffix("--plot", arguments.plot, PLOT_SUFFIXES, "the chart")
+    _refuse_overwrites([("DATA", arguments.data)],
+                       [("--out", arguments.out), ("--plot", arguments.plot)])
+    _remove_stale_temporaries(arguments.data, arguments.out, arguments.plot)
+    _check_input_file("DATA", arguments.data)
+    for option in ("out", "plot"):
+        if getattr(arguments, option):
+            _check_output_place(f"--{option}", getattr(arguments, option))
+    if arguments.plot:
+        from .plots import require_matplotlib
+
+        require_matplotlib()
+
+    table = _read_data(arguments, arguments.data)
+    X, y, names = _features_and_target(arguments, table)
+    if arguments.classify:
+        y = y.astype(str)
+    search = DirectionLiftCV(forest=EVALUATE_FORESTS[arguments.forest], cv=arguments.cv,
+                             n_jobs=arguments.jobs, random_state=arguments.seed)
+    search.fit(pd.DataFrame(X, columns=names), y)
+    summary = search.summary()
+    if arguments.out or arguments.plot:
+        with AtomicResult() as result:  # the table and its chart: both or neither
+            if arguments.out:
+                data = table_bytes(arguments.out, summary.assign(verdict=search.verdict_))
+                atomic_write(result.file(arguments.out), lambda handle: handle.write(data))
+            if arguments.plot:
+                from .plots import plot_selection
+
+                plot_selection(search, result.file(arguments.plot))
+    shown = summary.assign(**{column: summary[column].map(lambda value: f"{100 * value:+.1f}%")
+                              for column in ("change_vs_raw", "change_se")})
+    print(shown.to_string(index=False, float_format=lambda value: f"{value:.4g}"))
+    print(f"\n{search.verdict_}")
+    for path in (arguments.out, arguments.plot):
+        if path:
+            print(f"written to {path}")
     return EXIT_OK
 
 

@@ -4,11 +4,13 @@ Each rule is a small scikit-learn-style object (parameters in ``__init__``,
 nested parameters reachable by ``GridSearchCV`` as ``dim_rule__alpha``) with
 one method, ``select(estimator, X, y)``, returning the chosen dimension and a
 :class:`DimensionTest` table. ``dim = 0`` is a valid answer: no detectable
-structure.
+structure. The cross-validation rule (``dim_rule="cv"``) fits forests, so it
+lives in the model-selection layer, :mod:`splitlift.selection`.
 """
 
 from __future__ import annotations
 
+import importlib
 from dataclasses import asdict, dataclass, field
 from numbers import Integral, Real
 
@@ -348,82 +350,25 @@ def uses_local_resampling(resample: str, estimator, n_samples: int) -> bool:
                         (resample == "auto" and n_samples > LOCAL_RESAMPLING_MIN_ROWS))
 
 
-class CrossValidatedDimension(BaseEstimator):
-    """Choose the dimension by the cross-validated error of a downstream forest.
-
-    For each k in ``0 .. max_dim`` a ``DirectionLift`` with the estimator at
-    ``dim = k`` feeds ``forest``; the k with the lowest mean error is chosen
-    (``k = 0`` uses the even-spread lift, no subspace). This costs
-    ``(max_dim + 1) * cv`` forest fits, hence the modest defaults.
-
-    Parameters
-    ----------
-    forest : scikit-learn estimator, optional
-        Default: ``RandomForestRegressor(n_estimators=50)`` for a numeric
-        response, ``RandomForestClassifier`` for class labels.
-    cv : int or cross-validation splitter, default 5
-    max_dim : int, optional
-        Default ``min(default_max_dim(d), 5)``.
-    complement_weight : float, default 0.05
-    random_state : int or None, default None
-        Seeds the default forest and the fold split.
-    """
-
-    def __init__(self, forest=None, cv=5, max_dim=None, complement_weight=0.05,
-                 random_state=None):
-        self.forest = forest
-        self.cv = cv
-        self.max_dim = max_dim
-        self.complement_weight = complement_weight
-        self.random_state = random_state
-
-    def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
-        from sklearn.model_selection import KFold, StratifiedKFold, cross_val_score
-        from sklearn.pipeline import make_pipeline
-
-        from .lift import LiftMatrix
-        from .moments import _is_discrete
-        from .transformer import ApplyLift, DirectionLift
-
-        d = X.shape[1]
-        top = _largest_candidate(estimator, d, min(default_max_dim(d), 5)
-                                 if self.max_dim is None else self.max_dim)
-        classify = _is_discrete(np.asarray(y))
-        forest = self.forest if self.forest is not None else _default_forest(
-            classify, self.random_state)
-        cv = self.cv
-        if isinstance(cv, Integral):
-            splitter = StratifiedKFold if classify else KFold
-            cv = splitter(int(cv), shuffle=True, random_state=self.random_state)
-        rows, means = [], []
-        for k in range(top + 1):
-            lift = ApplyLift(LiftMatrix.even_spread(d)) if k == 0 else DirectionLift(
-                _fixed_dim(estimator, k), complement_weight=self.complement_weight,
-                standardize=False)
-            scores = cross_val_score(make_pipeline(lift, clone(forest)), X, y, cv=cv)
-            # scores are "higher is better": report the error as 1 - accuracy or -R^2 + 1
-            error = 1.0 - scores
-            means.append(error.mean())
-            rows.append({"k": k, "criterion": float(error.mean()), "std": float(error.std())})
-        chosen = int(np.argmin(means))
-        metric = "1 - accuracy" if classify else "1 - R^2"
-        return chosen, DimensionTest(f"cross-validation ({metric})", chosen, rows)
-
-
-def _default_forest(classify: bool, random_state):
-    from sklearn.ensemble import RandomForestClassifier, RandomForestRegressor
-
-    forest = RandomForestClassifier if classify else RandomForestRegressor
-    return forest(n_estimators=50, random_state=random_state, n_jobs=-1)
-
-
+#: Rule names and their factories. ``"cv"`` fits forests on lifted data, so it
+#: lives in the model-selection layer above the estimators and the transformer
+#: (:class:`splitlift.selection.CrossValidatedDimension`), which registers it
+#: here when it loads; this module never imports it at module level, and loads
+#: it by name only when a fit asks for ``"cv"`` before anything else did.
 RULES = {
     "chi2": SequentialChiSquare,
     "weighted_chi2": lambda: SequentialChiSquare(weighted=True),
     "permutation": PermutationTest,
     "ladle": LadleEstimator,
-    "cv": CrossValidatedDimension,
+    "cv": None,
 }
+
+
+def register_rule(name: str, factory) -> None:
+    """Provide the factory of a named rule defined in a layer above this one."""
+    if name not in RULES:
+        raise ValueError(f"unknown dimension rule {name!r}; known names: {sorted(RULES)}.")
+    RULES[name] = factory
 
 
 def resolve_rule(rule, estimator):
@@ -437,7 +382,11 @@ def resolve_rule(rule, estimator):
                 f"dim_rule={rule!r} is not available for {type(estimator).__name__}; "
                 f"choose one of {sorted(available)}."
             )
-        rule = RULES[rule]()
+        factory = RULES[rule]
+        if factory is None:  # registered by the model-selection layer when it loads
+            importlib.import_module("splitlift.selection")
+            factory = RULES[rule]
+        rule = factory()
     elif not hasattr(rule, "select"):
         raise ValueError(f"dim_rule must be a rule name or an object with select(), got {rule!r}.")
     return _seeded(rule, getattr(estimator, "random_state", None))

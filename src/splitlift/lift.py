@@ -122,11 +122,33 @@ class LiftMatrix:
 
         The repeated form (:meth:`repeated`) is used when the metadata says
         ``weight_form = "repeat"`` (as a ``DirectionLift`` records it), with
-        ``n_columns`` from the metadata.
+        ``n_columns`` from the metadata. When the metadata says
+        ``keep_inputs``, the identity comes first, so the inputs pass through
+        ahead of the lifted directions.
         """
-        if self.metadata.get("weight_form") == "repeat":
-            return self.repeated(self.metadata.get("n_columns"))
-        return self._matrix
+        matrix = (self.repeated(self.metadata.get("n_columns"))
+                  if self.metadata.get("weight_form") == "repeat" else self._matrix)
+        if self.metadata.get("keep_inputs"):
+            return np.vstack([np.eye(self.n_features), matrix])
+        return matrix
+
+    def output_feature_names(self, input_names=None) -> list[str]:
+        """Names of the columns :meth:`apply` returns, as ``DirectionLift`` and the CLI give them.
+
+        Lifted columns are ``direction_0``, ``direction_1``, ...; a lift that
+        keeps its inputs (metadata ``keep_inputs``) returns the input columns
+        first, under their names (``input_names``, else ``feature_names``,
+        else ``x0``, ``x1``, ...).
+        """
+        keep = bool(self.metadata.get("keep_inputs"))
+        lifted = self.output_matrix().shape[0] - (self.n_features if keep else 0)
+        directions = [f"direction_{index}" for index in range(lifted)]
+        if not keep:
+            return directions
+        names = input_names if input_names is not None else self.feature_names
+        if names is None:
+            names = [f"x{index}" for index in range(self.n_features)]
+        return [str(name) for name in names] + directions
 
     def apply(self, X) -> np.ndarray:
         """Lifted features ``((X - input_mean) / input_scale) @ output_matrix().T``.

@@ -347,3 +347,49 @@ def _plottable_response(y, n_samples: int) -> tuple[np.ndarray, np.ndarray | Non
         return response.astype(float), None
     classes, codes = np.unique(response, return_inverse=True)
     return codes.astype(float), classes
+
+
+def plot_selection(search, path, title: str | None = None) -> Path:
+    """Cross-validated error of every candidate of a fitted ``DirectionLiftCV``, with error bars.
+
+    Bars show ``mean_test_error`` with ± one standard error over folds
+    (``std_test_error / sqrt(n_splits_)``); the chosen candidate is
+    highlighted, the raw inputs' error is a dashed line, and a failed
+    candidate gets no bar but its status.
+
+    Parameters
+    ----------
+    search : fitted splitlift.DirectionLiftCV
+    path : str or Path
+    title : str, optional
+
+    Returns
+    -------
+    Path
+    """
+    Figure = _figure_class()
+    check_is_fitted(search, "cv_results_")
+    results = search.cv_results_
+    errors = np.asarray(results["mean_test_error"], dtype=float)
+    spread = np.asarray(results["std_test_error"], dtype=float) / np.sqrt(search.n_splits_)
+    ok = np.array([status == "ok" for status in results["status"]])
+    positions = np.arange(len(errors))[::-1]  # raw inputs at the top
+    colours = [_CHOSEN_COLOUR if index == search.best_index_ else
+               _OTHER_COLOUR if ok[index] else _INVALID_COLOUR for index in range(len(errors))]
+
+    figure = Figure(figsize=(7.0, 1.4 + 0.4 * len(errors)))
+    axes = figure.add_subplot()
+    axes.barh(positions, np.where(ok, errors, 0.0), xerr=np.where(ok, spread, 0.0),
+              color=colours, edgecolor="black", linewidth=0.5, capsize=3)
+    axes.axvline(errors[0], color="black", linestyle="--", linewidth=0.8,
+                 label="raw inputs")
+    for position, good, status in zip(positions, ok, results["status"], strict=True):
+        if not good:
+            axes.text(0.0, position, f"  {status}"[:80], va="center", fontsize="small",
+                      color=_INVALID_COLOUR)
+    axes.set_yticks(positions, [str(name) for name in results["candidate"]])
+    axes.set_xlabel(f"cross-validated error, ± 1 standard error ({search.n_splits_} folds)")
+    axes.set_title(title or "candidates; the chosen one highlighted")
+    axes.legend(loc="lower right", fontsize="small")
+    figure.tight_layout()
+    return _save(figure, path)

@@ -10,12 +10,10 @@ from __future__ import annotations
 import csv
 from collections.abc import Mapping
 from dataclasses import dataclass
-from numbers import Integral
 from pathlib import Path
 
 import numpy as np
 from sklearn.base import clone, is_classifier
-from sklearn.model_selection import KFold, StratifiedKFold
 from sklearn.utils import check_random_state
 
 from . import geometry
@@ -29,6 +27,7 @@ from ._validation import (
 )
 from .lift import LiftMatrix, divide_columns, lifted_features, zero_row_defect
 from .moments import _is_discrete
+from .selection import cross_validated_error, make_folds, seeded_clone
 
 #: Trees of the default forest: enough to rank candidates, few enough for a batch.
 DEFAULT_N_TREES = 30
@@ -295,7 +294,7 @@ def _build_context(X, y, reference, estimator, forest, cv, random_state):
         check_sample_count(data.shape[0])
         classify = is_classifier(forest) if forest is not None else _is_discrete(response)
         fitted_forest = _prepare_forest(forest, classify, forest_seed)
-        folds = _folds(cv, data, response, classify, fold_seed)
+        folds = make_folds(cv, data, response, classify, fold_seed)
     n_features = data.shape[1] if data is not None else None
 
     if reference is not None:
@@ -334,28 +333,7 @@ def _prepare_forest(forest, classify: bool, seed: int):
         raise ValueError(
             f"forest must be a scikit-learn estimator with fit and predict, got {forest!r}."
         )
-    model = clone(forest)
-    if model.get_params().get("random_state", 0) is None:
-        model.set_params(random_state=seed)
-    return model
-
-
-def _folds(cv, X, y, classify: bool, seed: int) -> list:
-    if isinstance(cv, Integral) and not isinstance(cv, bool):
-        if not 2 <= cv <= X.shape[0]:
-            raise ValueError(
-                f"cv must be at least 2 and at most the number of rows ({X.shape[0]}), "
-                f"got {cv}."
-            )
-        splitter = (StratifiedKFold if classify else KFold)(
-            int(cv), shuffle=True, random_state=seed)
-    elif hasattr(cv, "split") and not isinstance(cv, str | bytes):
-        splitter = cv
-    else:
-        raise ValueError(
-            f"cv must be an integer >= 2 or a cross-validation splitter, got {cv!r}."
-        )
-    return list(splitter.split(X, y))
+    return seeded_clone(forest, seed)
 
 
 # ------------------------------------------------------------- per candidate
@@ -379,7 +357,9 @@ def _score_one(name: str, item, context: _Context) -> dict:
         effective_directions=float(1.0 / np.sum(weights**2)),
     )
     if context.X is not None:
-        row["cv_error"], row["cv_error_std"] = _cross_validated_error(lift.matrix, context)
+        row["cv_error"], row["cv_error_std"] = cross_validated_error(
+            lifted_features(context.X, lift.matrix), context.y, context.forest, context.folds,
+            context.classify)
     return row
 
 
@@ -479,16 +459,3 @@ def _bound_factor(context: _Context, eps: float) -> float:
     n = context.n_samples or 1  # the factor does not depend on n
     axis_rate = n ** (-2.0 / (d + 2))
     return theory_risk_rate(n, d, s, float(min(eps, 1.0))) / axis_rate
-
-
-def _cross_validated_error(matrix: np.ndarray, context: _Context) -> tuple[float, float]:
-    lifted = lifted_features(context.X, matrix)
-    errors = []
-    for train, test in context.folds:
-        model = clone(context.forest).fit(lifted[train], context.y[train])
-        predicted = model.predict(lifted[test])
-        if context.classify:
-            errors.append(float(np.mean(predicted != context.y[test])))
-        else:
-            errors.append(float(np.mean((predicted - context.y[test].astype(float)) ** 2)))
-    return float(np.mean(errors)), float(np.std(errors))

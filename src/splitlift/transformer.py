@@ -5,15 +5,10 @@ from __future__ import annotations
 from numbers import Integral, Real
 
 import numpy as np
-from sklearn.base import (
-    BaseEstimator,
-    ClassNamePrefixFeaturesOutMixin,
-    TransformerMixin,
-    clone,
-)
+from sklearn.base import BaseEstimator, TransformerMixin, clone
 from sklearn.utils import check_random_state
 from sklearn.utils._param_validation import HasMethods, Interval, StrOptions
-from sklearn.utils.validation import check_is_fitted, validate_data
+from sklearn.utils.validation import _check_feature_names_in, check_is_fitted, validate_data
 
 from .estimators import SlicedInverse
 from .lift import LiftMatrix
@@ -22,12 +17,26 @@ from .loadings import loadings_frame
 from .moments import column_location_scale
 
 
-class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstimator):
+class DirectionLift(TransformerMixin, BaseEstimator):
     """Estimate a relevant subspace and lift the inputs onto split directions.
 
     ``fit`` fits a clone of ``estimator``, builds a :class:`LiftMatrix` around
     its subspace, and ``transform`` returns the lifted features, one column
-    per split direction.
+    per split direction (named ``direction_0``, ``direction_1``, ...), after
+    the (standardised) inputs when ``keep_inputs``.
+
+    Which forests the weights reach: ``complement_weight``, ``weight_power``
+    and the weights inside the subspace change the fitted model only for
+    forests that choose cut directions at random in proportion to a width or
+    a column count. The STIT forest (:class:`StitForestRegressor`,
+    :class:`StitForestClassifier`) honours them with ``weight_form="scale"``;
+    random-column forests (scikit-learn's random and extra-trees forests with
+    ``max_features < 1``) honour them only with ``weight_form="repeat"``.
+    Split-searching forests ignore them: a tree that searches every column
+    for its best cut (``RandomForestRegressor`` and ``ExtraTreesRegressor``
+    with their default ``max_features=1.0``, ``HistGradientBoosting*``,
+    gradient boosting) is unchanged by rescaling a column, so for those only
+    the directions matter, never their weights.
 
     Parameters
     ----------
@@ -65,6 +74,12 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         spread of directions), and to the estimator (and through it to its
         ``dim="auto"`` rule) when the estimator's own ``random_state`` is
         None, so one seed makes the whole fit reproducible.
+    keep_inputs : bool, default False
+        Return the (standardised) input columns, under their own names,
+        followed by the lifted directions, so a forest can cut along both the
+        axes and the learned directions. Saved with the lift, so
+        :meth:`LiftMatrix.apply` and ``splitlift transform`` return the same
+        columns under the same names.
 
     Attributes
     ----------
@@ -74,7 +89,8 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
     subspace_basis_ : ndarray of shape (n_features_in_, dim_)
         Orthonormal basis of the estimated subspace, in lift coordinates.
     output_matrix_ : ndarray of shape (n_output, n_features_in_)
-        The matrix ``transform`` applies (``lift_.matrix`` or its repeated form).
+        The matrix ``transform`` applies (``lift_.matrix`` or its repeated
+        form, below an identity block when ``keep_inputs``).
     mean_, scale_ : ndarray of shape (n_features_in_,)
         Standardisation; zeros and ones when ``standardize=False``.
     n_samples_fit_ : int
@@ -95,6 +111,8 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
     --------
     LiftMatrix.from_subspace : how the lift is built.
     StitForestRegressor : a forest that honours the weights.
+    splitlift.selection.DirectionLiftCV : choose between raw inputs and lifts by
+        cross-validation.
 
     Examples
     --------
@@ -119,6 +137,7 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         "weight_form": [StrOptions({"scale", "repeat"})],
         "n_columns": [Interval(Integral, 1, None, closed="left"), None],
         "random_state": ["random_state"],
+        "keep_inputs": ["boolean"],
     }
 
     def __init__(
@@ -131,6 +150,7 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         weight_form="scale",
         n_columns=None,
         random_state=None,
+        keep_inputs=False,
     ):
         self.estimator = estimator
         self.complement_weight = complement_weight
@@ -140,6 +160,7 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         self.weight_form = weight_form
         self.n_columns = n_columns
         self.random_state = random_state
+        self.keep_inputs = keep_inputs
 
     def fit(self, X, y):
         """Fit the estimator on (standardised) X and build the lift.
@@ -171,7 +192,8 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
             feature_names=None if names is None else list(names),
             metadata={"estimator": type(self.estimator_).__name__,
                       "standardized": bool(self.standardize),
-                      "weight_form": self.weight_form, "n_columns": self.n_columns},
+                      "weight_form": self.weight_form, "n_columns": self.n_columns,
+                      "keep_inputs": bool(self.keep_inputs)},
             input_mean=self.mean_ if self.standardize else None,
             input_scale=self.scale_ if self.standardize else None,
         )
@@ -294,9 +316,22 @@ class DirectionLift(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseEstim
         return loadings_frame(self.subspace_basis_, getattr(self, "feature_names_in_", None),
                               scale=1.0 / np.where(spread > 0, spread, 1.0))
 
-    @property
-    def _n_features_out(self) -> int:
-        return self.output_matrix_.shape[0]
+
+    def get_feature_names_out(self, input_features=None) -> np.ndarray:
+        """Output column names: the inputs' names when kept, then ``direction_0``, ...
+
+        Parameters
+        ----------
+        input_features : array-like of str, optional
+            Input names; default ``feature_names_in_``, else ``x0``, ``x1``, ...
+
+        Returns
+        -------
+        ndarray of str
+        """
+        check_is_fitted(self, "lift_")
+        inputs = _check_feature_names_in(self, input_features)
+        return np.asarray(self.lift_.output_feature_names(list(inputs)), dtype=object)
 
     def __sklearn_tags__(self):
         tags = super().__sklearn_tags__()
