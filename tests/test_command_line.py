@@ -14,19 +14,26 @@ def run(*arguments, cwd=None):
     )
 
 
-def test_demo_runs_and_the_lift_helps():
-    result = run("demo", "--samples", "600", "--folds", "3", "--trees", "30")
+def test_demo_runs_and_the_lift_helps(tmp_path):
+    result = run("demo", "--samples", "600", "--folds", "3", "--trees", "30",
+                 "--out-dir", str(tmp_path / "demo"))
     assert result.returncode == 0, result.stderr
-    for needle in ("SYNTHETIC", "SIR", "SAVE", "pHd", "angles to estimate", "raw features"):
+    for needle in ("SYNTHETIC", "SIR", "OPG", "dimension rule", "leading features",
+                   "findings and next steps", "raw inputs", "verdict:", "STIT forest",
+                   "written:"):
         assert needle in result.stdout
+    assert (tmp_path / "demo" / "kiln_lift.npz").exists()
+    assert (tmp_path / "demo" / "plots" / "eigenvalues.png").exists()
 
 
 def test_demo_result_values():
     import io
 
     summary = run_demo(n_samples=800, n_folds=3, n_trees=40, stream=io.StringIO())
-    assert summary["angles"]["SIR"] < 20.0
-    assert summary["cv_mse"]["lifted by SIR"] < summary["cv_mse"]["raw features"]
+    assert summary["angles"]["SIR"] < 20.0 and summary["dims"]["OPG"] == 2
+    # the synthetic response is a ridge function: the guard must choose a lift
+    assert "lowers CV" in summary["verdict"]
+    assert summary["stit_mse"] < summary["forest_mse"]
 
 
 def test_usage_errors_exit_2_without_traceback():

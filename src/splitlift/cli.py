@@ -132,8 +132,10 @@ def _build_parser() -> argparse.ArgumentParser:
 
     demo = commands.add_parser("demo", help="run the whole job on bundled synthetic data")
     demo.add_argument("--samples", type=_at_least(2), default=1500, help="rows of synthetic data")
-    demo.add_argument("--folds", type=_at_least(2), default=5, help="cross-validation folds")
-    demo.add_argument("--trees", type=_at_least(2), default=100, help="trees per forest")
+    demo.add_argument("--folds", type=_at_least(2), default=3, help="cross-validation folds")
+    demo.add_argument("--trees", type=_at_least(2), default=60, help="trees per forest")
+    demo.add_argument("--out-dir", default="splitlift-demo-output", metavar="DIR",
+                      help="where the demo saves its lift file and plots")
     demo.add_argument("--seed", type=int, default=0, help="random seed")
 
     fit = commands.add_parser("fit", help="estimate a subspace and save its lift")
@@ -450,7 +452,8 @@ def _check_rows_per_slice(y, estimator, method: str) -> None:
 def _run_demo(arguments) -> int:
     from .demo import run_demo
 
-    run_demo(arguments.samples, arguments.folds, arguments.trees, arguments.seed)
+    run_demo(arguments.samples, arguments.folds, arguments.trees, arguments.seed,
+             output_dir=arguments.out_dir)
     return EXIT_OK
 
 
