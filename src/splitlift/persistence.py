@@ -202,6 +202,7 @@ class AtomicResult:
 
     def commit(self) -> None:
         """Move every staged file into place, or (on failure) none of them."""
+        undone = True  # False only when putting the old files back failed too
         try:
             entries = self._plan()
             if not self._staging:
@@ -215,13 +216,16 @@ class AtomicResult:
                     for entry in entries:
                         _apply(entry)
                 except BaseException:
+                    undone = False
                     for entry in reversed(entries):
                         _undo(entry)
+                    undone = True
                     raise
                 (primary / _JOURNAL).unlink()  # from here on the new result stands
             _sync_folders(self._staging)
         finally:
-            self.discard()
+            if undone:  # else the journal and backups stay for the next run to roll back
+                self.discard()
 
     def discard(self) -> None:
         """Remove everything staged; the targets keep their previous content."""
