@@ -187,7 +187,9 @@ def test_transform_writes_the_format_its_suffix_names(small_data, tmp_path, suff
               ".parquet": pd.read_parquet}[suffix]
     expected = sl.LiftMatrix.load(lift).apply(table[list("abcde")].to_numpy())
     written = reader(out)
-    assert list(written.columns) == [f"direction_{k}" for k in range(expected.shape[1])]
+    # the names DirectionLift gives in Python: subspace directions, then complement ones
+    assert list(written.columns) == sl.LiftMatrix.load(lift).output_feature_names()
+    assert written.columns[0] == "subspace_0" and written.columns[-1].startswith("complement_")
     np.testing.assert_array_equal(written.to_numpy(), expected)  # full precision every format
     if suffix == ".json":
         assert json.loads(out.read_text())[0].keys() == set(written.columns)
@@ -283,9 +285,6 @@ def test_seed_reaches_the_lift_and_the_estimator(small_data, tmp_path):
     np.testing.assert_array_equal(one.matrix, two.matrix)
 
 
-@pytest.mark.xfail(reason="the dimension rule's permutations are seeded from DirectionLift's "
-                          "random_state by a change made on another branch of issue 10",
-                   strict=False)
 def test_same_seed_same_report(small_data, tmp_path):
     one, two = fit_twice_with_seed(small_data[0], tmp_path)
     assert one.metadata["report_text"] == two.metadata["report_text"]

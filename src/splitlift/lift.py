@@ -135,14 +135,16 @@ class LiftMatrix:
     def output_feature_names(self, input_names=None) -> list[str]:
         """Names of the columns :meth:`apply` returns, as ``DirectionLift`` and the CLI give them.
 
-        Lifted columns are ``direction_0``, ``direction_1``, ...; a lift that
-        keeps its inputs (metadata ``keep_inputs``) returns the input columns
-        first, under their names (``input_names``, else ``feature_names``,
-        else ``x0``, ``x1``, ...).
+        A lifted column is ``subspace_<i>`` when its direction lies in the
+        estimated subspace and ``complement_<i>`` when it lies in its
+        orthogonal complement (each counted from 0); a lift built without a
+        subspace names them ``direction_<i>``. A lift that keeps its inputs
+        (metadata ``keep_inputs``) returns the input columns first, under
+        their names (``input_names``, else ``feature_names``, else ``x0``, ...).
         """
         keep = bool(self.metadata.get("keep_inputs"))
-        lifted = self.output_matrix().shape[0] - (self.n_features if keep else 0)
-        directions = [f"direction_{index}" for index in range(lifted)]
+        rows = self.output_matrix()[self.n_features if keep else 0:]
+        directions = _direction_names(rows, self.subspace_basis)
         if not keep:
             return directions
         names = input_names if input_names is not None else self.feature_names
@@ -601,3 +603,20 @@ def _eigenvalue_weights(coefficients, eigenvalues, weight_power, dim) -> np.ndar
             f"|weight_power| <= {np.floor(limit * 10) / 10:g}."
         )
     return weights
+
+
+def _direction_names(rows: np.ndarray, subspace_basis) -> list[str]:
+    """``subspace_<i>`` / ``complement_<i>`` by where each row points, else ``direction_<i>``."""
+    if subspace_basis is None or subspace_basis.shape[1] == 0:
+        return [f"direction_{index}" for index in range(rows.shape[0])]
+    norms = geometry.row_norms(rows)
+    unit = rows / np.where(norms > 0, norms, 1.0)[:, None]
+    # mostly inside S (cos^2 > 1/2); rows built by from_subspace are exactly in S or S-perp
+    inside = np.linalg.norm(unit @ subspace_basis, axis=1) ** 2 > 0.5
+    counts = {"subspace": 0, "complement": 0}
+    names = []
+    for flag in inside:
+        kind = "subspace" if flag else "complement"
+        names.append(f"{kind}_{counts[kind]}")
+        counts[kind] += 1
+    return names

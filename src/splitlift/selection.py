@@ -587,7 +587,7 @@ class DirectionLiftCV(TransformerMixin, BaseEstimator):
         return self.best_lift_.transform(X)
 
     def get_feature_names_out(self, input_features=None) -> np.ndarray:
-        """Output names: the input names (pass-through or kept), then ``direction_0``, ...
+        """Output names: the input names (pass-through or kept), then the lifted columns.
 
         Parameters
         ----------

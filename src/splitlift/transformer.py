@@ -22,7 +22,8 @@ class DirectionLift(TransformerMixin, BaseEstimator):
 
     ``fit`` fits a clone of ``estimator``, builds a :class:`LiftMatrix` around
     its subspace, and ``transform`` returns the lifted features, one column
-    per split direction (named ``direction_0``, ``direction_1``, ...), after
+    per split direction (named ``subspace_<i>`` inside the estimated subspace and
+    ``complement_<i>`` in its complement), after
     the (standardised) inputs when ``keep_inputs``.
 
     Which forests the weights reach: ``complement_weight``, ``weight_power``
@@ -318,7 +319,7 @@ class DirectionLift(TransformerMixin, BaseEstimator):
 
 
     def get_feature_names_out(self, input_features=None) -> np.ndarray:
-        """Output column names: the inputs' names when kept, then ``direction_0``, ...
+        """Output column names: the inputs' names when kept, then ``subspace_<i>``, ``complement_<i>``.
 
         Parameters
         ----------
