@@ -319,7 +319,7 @@ class DirectionLift(TransformerMixin, BaseEstimator):
 
 
     def get_feature_names_out(self, input_features=None) -> np.ndarray:
-        """Output column names: the inputs' names when kept, then ``subspace_<i>``, ``complement_<i>``.
+        """Output names: the inputs' names when kept, then ``subspace_<i>``, ``complement_<i>``.
 
         Parameters
         ----------
