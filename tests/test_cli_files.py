@@ -57,14 +57,24 @@ def test_report_command_with_reference(data_file, tmp_path):
     assert "reference subspace" in shown.stdout and "angles to estimate" in shown.stdout
 
 
-@pytest.mark.parametrize("method", ["save", "phd", "opg", "ade"])
-def test_fit_with_each_method(data_file, tmp_path, method):
+@pytest.mark.parametrize("estimator", ["SlicedAverageVariance", "HessianDirections",
+                                       "gradientouterproduct", "AverageDerivative"])
+def test_fit_with_each_estimator(data_file, tmp_path, estimator):
     path, _, _ = data_file
-    dim = "1" if method == "ade" else "2"
-    result = run("fit", str(path), "--target", "strength", "--method", method, "--dim", dim,
-                 "--out", str(tmp_path / "lift.npz"))
+    dim = "1" if estimator == "AverageDerivative" else "2"
+    result = run("fit", str(path), "--target", "strength", "--estimator", estimator,
+                 "--dim", dim, "--out", str(tmp_path / "lift.npz"))
     assert result.returncode == 0, result.stderr
     assert (tmp_path / "lift.npz").exists()
+
+
+def test_old_method_option_still_works_with_a_deprecation_warning(data_file, tmp_path):
+    path, _, _ = data_file
+    result = run("fit", str(path), "--target", "strength", "--method", "opg", "--dim", "2",
+                 "--out", str(tmp_path / "lift.npz"))
+    assert result.returncode == 0, result.stderr
+    assert "--method is deprecated" in result.stderr
+    assert "--estimator GradientOuterProduct" in result.stderr
 
 
 def test_missing_target_column_is_a_data_error_with_no_output(data_file, tmp_path):
@@ -272,7 +282,7 @@ def test_saved_row_index_is_dropped_with_a_note(small_data, tmp_path):
 
 def fit_twice_with_seed(path, folder):
     for run in ("one", "two"):
-        code, _, err = run_here("fit", path, "--target", "y", "--method", "opg", "--dim", "auto",
+        code, _, err = run_here("fit", path, "--target", "y", "--estimator", "GradientOuterProduct", "--dim", "auto",
                                 "--seed", "7", "--out", folder / f"{run}.npz")
         assert code == 0, err
     return [sl.LiftMatrix.load(folder / f"{run}.npz") for run in ("one", "two")]
@@ -292,7 +302,7 @@ def test_same_seed_same_report(small_data, tmp_path):
 
 def test_slices_option_sets_the_estimators_slices(small_data, tmp_path):
     path, _ = small_data
-    code, _, err = run_here("fit", path, "--target", "y", "--method", "save", "--slices", "3",
+    code, _, err = run_here("fit", path, "--target", "y", "--estimator", "SlicedAverageVariance", "--slices", "3",
                             "--dim", "1", "--out", tmp_path / "lift.npz")
     assert code == 0, err
     assert sl.LiftMatrix.load(tmp_path / "lift.npz").metadata["estimator_params"][

@@ -6,16 +6,21 @@ from collections.abc import Callable, Iterable
 
 from joblib import Parallel, delayed
 
+#: Set by the command line's ``--quiet``: no bar anywhere in this process.
+QUIET = False
+
 
 def progress_bar(total: int, label: str, enabled: bool = True):
     """A tqdm bar with elapsed time and ETA, in terminals and notebooks.
 
-    ``enabled=False`` hides it; otherwise tqdm shows it only where it can be
-    drawn (a terminal or a notebook), so logs and pipes stay clean.
+    ``enabled=False`` (or :data:`QUIET`) hides it; otherwise tqdm shows it
+    only where it can be drawn (a terminal or a notebook), so logs and pipes
+    stay clean.
     """
     from tqdm.auto import tqdm
 
-    return tqdm(total=total, desc=label, disable=None if enabled else True, leave=False,
+    shown = enabled and not QUIET
+    return tqdm(total=total, desc=label, disable=None if shown else True, leave=False,
                 dynamic_ncols=True)
 
 

@@ -50,7 +50,7 @@ METHODS = {
     "opg": "GradientOuterProduct",
     "ade": "AverageDerivative",
 }
-SLICED_METHODS = ("sir", "save", "ade")
+SLICED_ESTIMATORS = ("SlicedInverse", "SlicedAverageVariance", "AverageDerivative")
 LIFT_SUFFIXES = (".npz",)
 REPORT_SUFFIXES = (".txt", ".md", ".json")
 MATRIX_SUFFIXES = (".npy", ".csv")
@@ -121,16 +121,48 @@ def _add_table_options(command, with_features: bool = True) -> None:
                                   "(by default they are dropped with a note)")
 
 
+class _HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescriptionHelpFormatter):
+    """Defaults shown after every option's help; descriptions and examples kept as written."""
+
+    def _get_help_string(self, action):
+        if action.default in (None, False) or "(default" in (action.help or ""):
+            return action.help  # no value to show, or the help says it already
+        return super()._get_help_string(action)
+
+
+def _command(commands, name: str, summary: str, description: str, example: str):
+    command = commands.add_parser(
+        name, help=summary, description=f"{summary}.\n\n{description}",
+        epilog="example:\n  " + example, formatter_class=_HelpFormatter)
+    # also accepted after the command; SUPPRESS keeps a --quiet given before it
+    command.add_argument("--quiet", action="store_true", default=argparse.SUPPRESS,
+                         help="no progress bars, notes or warnings on stderr")
+    return command
+
+
 def _build_parser() -> argparse.ArgumentParser:
+    from . import __version__
+
     parser = _Parser(
         prog="splitlift",
-        description="Learn split directions for random forests (supervised dimension reduction).",
+        description="Learn split directions for random forests (supervised dimension "
+                    "reduction): estimate the subspace a response depends on, lift the inputs "
+                    "onto it, and check whether that helps your forest.",
         epilog="Exit codes: 0 success, 1 data or file error, 2 usage error, 3 internal error, "
-               "130 interrupted.",
+               "130 interrupted.\nexample:\n  splitlift demo\n  splitlift fit data.csv "
+               "--target y --out lift.npz",
+        formatter_class=_HelpFormatter,
     )
+    parser.add_argument("--version", action="version", version=f"splitlift {__version__}")
+    parser.add_argument("--quiet", action="store_true",
+                        help="no progress bars, notes or warnings on stderr")
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
-    demo = commands.add_parser("demo", help="run the whole job on bundled synthetic data")
+    demo = _command(commands, "demo", "run the whole job on bundled synthetic data",
+                    "Invented kiln data: two estimators with automatic dimension, a full "
+                    "report, the guarded comparison with the raw inputs, the STIT forest, and "
+                    "a saved lift with its plots.",
+                    "splitlift demo --out-dir demo-output")
     demo.add_argument("--samples", type=_at_least(2), default=1500, help="rows of synthetic data")
     demo.add_argument("--folds", type=_at_least(2), default=3, help="cross-validation folds")
     demo.add_argument("--trees", type=_at_least(2), default=60, help="trees per forest")
@@ -138,39 +170,60 @@ def _build_parser() -> argparse.ArgumentParser:
                       help="where the demo saves its lift file and plots")
     demo.add_argument("--seed", type=int, default=0, help="random seed")
 
-    fit = commands.add_parser("fit", help="estimate a subspace and save its lift")
+    fit = _command(commands, "fit", "estimate a subspace and save its lift",
+                   "Reads DATA, estimates the subspace the target depends on, builds the lift "
+                   "and writes it (with its report and plots, all or nothing).",
+                   "splitlift fit data.csv --target strength --estimator GradientOuterProduct "
+                   "--dim auto --out lift.npz --report report.txt --html report.html")
     fit.add_argument("data", metavar="DATA", help="CSV, Parquet (with pyarrow) or JSON file")
     fit.add_argument("--target", required=True, metavar="COL", help="response column")
     _add_table_options(fit)
-    fit.add_argument("--method", choices=sorted(METHODS), default="sir",
-                     help="subspace estimator (default: sir)")
+    fit.add_argument("--estimator", type=_estimator_name, default="SlicedInverse",
+                     metavar="NAME", help="subspace estimator: " + ", ".join(ESTIMATORS))
+    fit.add_argument("--method", type=_deprecated_method, dest="estimator",
+                     help=argparse.SUPPRESS)  # old spelling, kept for one release
     fit.add_argument("--dim", type=_dimension, default="auto", metavar="N|auto",
-                     help="subspace dimension (default: auto)")
+                     help="subspace dimension, or auto for the estimator's rule")
     fit.add_argument("--slices", type=_at_least(2), metavar="N",
-                     help="number of slices of sir, save and ade (default: the method's)")
+                     help="slices of SlicedInverse, SlicedAverageVariance and AverageDerivative "
+                          "(default: the estimator's)")
     fit.add_argument("--complement-weight", type=float, default=0.05, metavar="W",
-                     help="weight of the orthogonal complement, in (0, 1) (default 0.05)")
+                     help="weight of the orthogonal complement, in (0, 1)")
     fit.add_argument("--seed", type=int, default=0,
-                     help="seed of every random choice (dimension rules, bootstrap; default 0)")
+                     help="seed of every random choice (dimension rules, bootstrap)")
     fit.add_argument("--keep-inputs", action="store_true",
                      help="output the inputs, then the lifted directions")
     fit.add_argument("--out", required=True, metavar="LIFT.npz", help="lift file to write")
     fit.add_argument("--report", metavar="FILE",
                      help="also write the report: .txt or .md (text) or .json")
+    fit.add_argument("--html", metavar="FILE.html",
+                     help="also write the report as one self-contained HTML page with plots")
     fit.add_argument("--plot", metavar="DIR", help="also write diagnostic PNG plots here")
+    fit.add_argument("--json", action="store_true",
+                     help="print the report as JSON on stdout instead of text")
 
-    transform = commands.add_parser("transform", help="apply a saved lift to data")
-    transform.add_argument("lift", metavar="LIFT.npz")
-    transform.add_argument("data", metavar="DATA")
+    transform = _command(commands, "transform", "apply a saved lift to data",
+                         "Writes the lifted columns (named as in Python: subspace_<i>, "
+                         "complement_<i>, after the inputs when the lift keeps them).",
+                         "splitlift transform lift.npz new.csv --keep id --out lifted.parquet")
+    transform.add_argument("lift", metavar="LIFT.npz", help="lift file written by fit")
+    transform.add_argument("data", metavar="DATA", help="table holding the lift's feature columns")
     _add_table_options(transform, with_features=False)
+    transform.add_argument("--keep", metavar="C1,C2,...",
+                           help="columns to carry through unchanged, before the lifted ones "
+                                "(identifiers, the target)")
     transform.add_argument("--out", required=True, metavar="OUT",
                            help="lifted table: .csv, .tsv, .parquet or .json")
 
-    score = commands.add_parser("score", help="score candidate direction matrices")
+    score = _command(commands, "score", "score candidate direction matrices",
+                     "Ranks lifts and matrices by off-subspace weight, coverage and the "
+                     "cross-validated error of a forest; rank-deficient candidates are flagged.",
+                     "splitlift score lift.npz axes.npy --data data.csv --target y "
+                     "--out ranking.csv")
     score.add_argument("candidates", nargs="+", metavar="CANDIDATE",
                        help=".npz lift files, .npy or .csv matrices")
-    score.add_argument("--data", required=True, metavar="DATA")
-    score.add_argument("--target", required=True, metavar="COL")
+    score.add_argument("--data", required=True, metavar="DATA", help="table with the features")
+    score.add_argument("--target", required=True, metavar="COL", help="response column")
     _add_table_options(score)
     score.add_argument("--reference", metavar="REF.npy",
                        help="columns spanning a known subspace (.npy or .csv)")
@@ -178,35 +231,74 @@ def _build_parser() -> argparse.ArgumentParser:
                        help="score table: .csv, .tsv, .parquet or .json")
     score.add_argument("--plot", metavar="FILE.png", help="also draw the ranking chart")
     score.add_argument("--seed", type=int, default=0, help="seed of the folds and forests")
+    score.add_argument("--jobs", type=int, default=None, metavar="N",
+                       help="parallel workers (-1: all cores; default: one)")
 
-    report = commands.add_parser("report", help="print the diagnostics of a saved lift")
-    report.add_argument("lift", metavar="LIFT.npz")
-    report.add_argument("--reference", metavar="REF.npy")
+    report = _command(commands, "report", "print the diagnostics of a saved lift",
+                      "Prints the report stored with the lift, and its relation to a reference "
+                      "subspace when one is given.",
+                      "splitlift report lift.npz --reference truth.npy")
+    report.add_argument("lift", metavar="LIFT.npz", help="lift file written by fit")
+    report.add_argument("--reference", metavar="REF.npy",
+                        help="columns spanning a known subspace, in input coordinates")
+    report.add_argument("--json", action="store_true", help="print the report as JSON")
 
-    evaluate = commands.add_parser(
-        "evaluate", help="compare raw inputs and lifts by cross-validating a forest")
-    evaluate.add_argument("data", metavar="DATA", help="CSV (or Parquet with pyarrow) file")
+    evaluate = _command(commands, "evaluate",
+                        "compare raw inputs and lifts by cross-validating a forest",
+                        "The raw inputs are always a candidate; a one-standard-error rule "
+                        "favours the simpler one, and the verdict says whether a lift helps.",
+                        "splitlift evaluate data.csv --target y --forest et --out table.csv")
+    evaluate.add_argument("data", metavar="DATA", help="CSV, Parquet (with pyarrow) or JSON file")
     evaluate.add_argument("--target", required=True, metavar="COL", help="response column")
     evaluate.add_argument("--forest", choices=sorted(EVALUATE_FORESTS), default="rf",
-                          help="downstream forest (default: rf)")
-    evaluate.add_argument("--cv", type=int, default=5, metavar="K", help="folds (default 5)")
+                          help="downstream forest")
+    evaluate.add_argument("--cv", type=int, default=5, metavar="K", help="folds")
     evaluate.add_argument("--classify", action="store_true",
                           help="read a numeric target as class labels")
-    evaluate.add_argument("--jobs", type=int, default=1, metavar="N", help="parallel jobs")
+    evaluate.add_argument("--jobs", type=int, default=1, metavar="N",
+                          help="parallel workers (-1: all cores)")
     evaluate.add_argument("--seed", type=int, default=0, help="seed of the folds and forests")
     _add_table_options(evaluate)
-    evaluate.add_argument("--out", metavar="FILE", help="write the table (.csv, .tsv, .json, "
-                                                        ".parquet)")
+    evaluate.add_argument("--out", metavar="FILE",
+                          help="write the table (.csv, .tsv, .json, .parquet)")
     evaluate.add_argument("--plot", metavar="FILE.png", help="plot CV error with error bars")
 
-    bench = commands.add_parser("bench", help="time splitlift against reference implementations")
+    bench = _command(commands, "bench", "time splitlift against reference implementations",
+                     "Speed against statsmodels, X.T @ X and scikit-learn's extra-trees; "
+                     "accuracy and rate on synthetic problems; the real-data suite.",
+                     "splitlift bench --suite all --quick --markdown bench.md")
     bench.add_argument("--suite", choices=["speed", "accuracy", "rate", "real", "all"],
-                       default="speed")
+                       default="speed", help="which tables to produce")
     bench.add_argument("--quick", action="store_true", help="small sizes, finishes fast")
     bench.add_argument("--json", metavar="FILE", help="also write the results as JSON")
     bench.add_argument("--markdown", metavar="FILE",
                        help="also write the tables as a Markdown page (docs/benchmarks.md)")
     return parser
+
+
+#: Estimators by class name, as --estimator takes them (case does not matter).
+ESTIMATORS = ("SlicedInverse", "SlicedAverageVariance", "HessianDirections",
+              "GradientOuterProduct", "AverageDerivative")
+
+
+def _estimator_name(text: str) -> str:
+    for name in ESTIMATORS:
+        if text.lower() == name.lower():
+            return name
+    raise argparse.ArgumentTypeError(
+        f"unknown estimator {text!r}; choose one of {', '.join(ESTIMATORS)}")
+
+
+def _deprecated_method(text: str) -> str:
+    if text.lower() not in METHODS:
+        raise argparse.ArgumentTypeError(
+            f"unknown method {text!r}; use --estimator with one of {', '.join(ESTIMATORS)}")
+    _DEPRECATIONS.append(f"--method is deprecated and will be removed in the next release; "
+                         f"use --estimator {METHODS[text.lower()]}")
+    return METHODS[text.lower()]
+
+
+_DEPRECATIONS: list[str] = []
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -219,6 +311,13 @@ def main(argv: list[str] | None = None) -> int:
             EXIT_USAGE)
     command = arguments.command
     handler = globals()[f"_run_{command}"]
+    if arguments.quiet:
+        from . import _progress
+
+        _progress.QUIET = True
+    _QUIET[0] = arguments.quiet
+    for message in _DEPRECATIONS:
+        _say(command, "warning", message)
     try:
         with _terminate_as_exception(), warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
@@ -264,7 +363,12 @@ def _in_command_line_terms(message: str) -> str:
     return _PARAMETER.sub(option, message)
 
 
+_QUIET = [False]  # --quiet: errors only on stderr
+
+
 def _say(command: str, kind: str, message) -> None:
+    if _QUIET[0] and kind in ("note", "warning"):
+        return
     text = " ".join(str(message).split())  # one line, whatever the message holds
     sys.stderr.write(f"splitlift {command}: {kind}: {text}\n")
 
@@ -287,15 +391,15 @@ def _terminate_as_exception():
 
 
 # ------------------------------------------------------------------ up-front checks
-def _feature_list(text: str | None) -> list[str] | None:
+def _feature_list(text: str | None, option: str = "--features") -> list[str] | None:
     if text is None:
         return None
     names = [name.strip() for name in text.split(",") if name.strip()]
     if not names:
-        raise UsageError("--features names no column; list them as --features a,b,c")
+        raise UsageError(f"{option} names no column; list them as {option} a,b,c")
     repeated = sorted({name for name in names if names.count(name) > 1})
     if repeated:
-        raise UsageError(f"--features lists {repeated} more than once; name each column once")
+        raise UsageError(f"{option} lists {repeated} more than once; name each column once")
     return names
 
 
@@ -426,8 +530,8 @@ def _features_and_target(arguments, table):
     return features_and_target(table, arguments.target, features, exclude=tuple(dropped))
 
 
-def _check_rows_per_slice(y, estimator, method: str) -> None:
-    """Refuse, in command-line terms, fewer rows than the slices of ``method`` need."""
+def _check_rows_per_slice(y, estimator, name: str) -> None:
+    """Refuse, in command-line terms, fewer rows than the slices of estimator ``name`` need."""
     import numpy as np
 
     from .moments import slice_response
@@ -443,8 +547,8 @@ def _check_rows_per_slice(y, estimator, method: str) -> None:
         fix = (f"pass --slices {len(y) // 2} or fewer, or add rows" if len(y) >= 4
                else "add rows")
         raise ValueError(
-            f"the data has {len(y)} rows, too few for the {n_slices} slices of --method "
-            f"{method} (each slice needs at least 2 rows, so at least {2 * n_slices}); {fix}"
+            f"the data has {len(y)} rows, too few for the {n_slices} slices of --estimator "
+            f"{name} (each slice needs at least 2 rows, so at least {2 * n_slices}); {fix}"
         )
 
 
@@ -461,9 +565,9 @@ def _run_fit(arguments) -> int:
     # the command line itself (exit 2)
     if not 0 < arguments.complement_weight < 1:
         raise UsageError("--complement-weight must be strictly between 0 and 1")
-    if arguments.slices is not None and arguments.method not in SLICED_METHODS:
-        raise UsageError(f"--slices applies to --method {', '.join(SLICED_METHODS)}, not "
-                         f"{arguments.method}; drop --slices")
+    if arguments.slices is not None and arguments.estimator not in SLICED_ESTIMATORS:
+        raise UsageError(f"--slices applies to --estimator {', '.join(SLICED_ESTIMATORS)}, "
+                         f"not {arguments.estimator}; drop --slices")
     _check_data_suffix("DATA", arguments.data, arguments.sep)
     _check_suffix("--out", arguments.out, LIFT_SUFFIXES, "a lift file")
     if arguments.plot and Path(arguments.plot).suffix.lower() in _IMAGE_SUFFIXES:
@@ -471,6 +575,8 @@ def _run_fit(arguments) -> int:
                          "PNG files into the folder --plot names; give a folder, e.g. --plot plots")
     if arguments.report:
         _check_suffix("--report", arguments.report, REPORT_SUFFIXES, "the report")
+    if arguments.html:
+        _check_suffix("--html", arguments.html, (".html", ".htm"), "the report page")
     from .plots import PLOT_FILES
 
     plot_files = ([] if arguments.plot is None else
@@ -478,23 +584,36 @@ def _run_fit(arguments) -> int:
                    for name in PLOT_FILES])
     _refuse_overwrites([("DATA", arguments.data)],
                        [("--out", arguments.out), ("--report", arguments.report),
+                        ("--html", arguments.html),
                         ("--plot", arguments.plot), *plot_files])
     # the files (exit 1), still before any work
-    _remove_stale_temporaries(arguments.data, arguments.out, arguments.report, arguments.plot)
+    _remove_stale_temporaries(arguments.data, arguments.out, arguments.report, arguments.plot,
+                              arguments.html)
     _check_input_file("DATA", arguments.data)
     _check_output_place("--out", arguments.out)
-    if arguments.report:
-        _check_output_place("--report", arguments.report)
+    for option in ("report", "html"):
+        if getattr(arguments, option):
+            _check_output_place(f"--{option}", getattr(arguments, option))
+    if arguments.html:
+        from .plots import require_matplotlib
+
+        require_matplotlib()  # the page embeds the plots
     if arguments.plot:
         _check_plot_folder(arguments.plot)
 
     X, y, lift = _fit_lift(arguments)
     report = lift.report()
     _write_fit_result(arguments, lift, report, X, y)
-    print(report)
+    if arguments.json:
+        print(_report_text(report, "report.json").decode("utf-8"))
+        return EXIT_OK
+    if not arguments.quiet:
+        print(report)
     written = [f"lift written to {arguments.out}"]
     if arguments.report:
         written.append(f"report to {arguments.report}")
+    if arguments.html:
+        written.append(f"page to {arguments.html}")
     if arguments.plot:
         written.append(f"plots to {arguments.plot}")
     print("\n" + ", ".join(written))
@@ -512,13 +631,13 @@ def _fit_lift(arguments):
     if arguments.dim != "auto" and arguments.dim > len(names):
         raise ValueError(f"--dim {arguments.dim} is more than the {len(names)} feature columns; "
                          f"choose --dim {len(names)} or less, or --dim auto")
-    estimator = getattr(estimators, METHODS[arguments.method])(dim=arguments.dim)
+    estimator = getattr(estimators, arguments.estimator)(dim=arguments.dim)
     settings = estimator.get_params()
     if arguments.slices is not None:
         estimator.set_params(n_slices=arguments.slices)
     if "random_state" in settings:
         estimator.set_params(random_state=arguments.seed)
-    _check_rows_per_slice(y, estimator, arguments.method)
+    _check_rows_per_slice(y, estimator, arguments.estimator)
     lift = DirectionLift(estimator, complement_weight=arguments.complement_weight,
                          keep_inputs=arguments.keep_inputs, random_state=arguments.seed)
     lift.fit(pd.DataFrame(X, columns=names), y)
@@ -538,20 +657,26 @@ def _write_fit_result(arguments, lift, report, X, y) -> None:
             from .plots import PLOT_FILES, write_all_plots
 
             write_all_plots(lift, X, y, result.folder(arguments.plot, owned_names=PLOT_FILES))
+        if arguments.html:
+            report.to_html(result.file(arguments.html), plots=_plot_images(lift, X, y))
+
+
+def _plot_images(lift, X, y) -> dict:
+    """The diagnostic plots as PNG bytes by title, drawn in a scratch folder."""
+    import tempfile
+
+    from .plots import write_all_plots
+
+    with tempfile.TemporaryDirectory(prefix=".splitlift-plots-") as folder:
+        return {path.stem.replace("_", " "): path.read_bytes()
+                for path in write_all_plots(lift, X, y, folder)}
 
 
 def _report_text(report, path) -> bytes:
     if Path(path).suffix.lower() == ".json":
         import json
 
-        import numpy as np
-
-        def plain(value):
-            if isinstance(value, np.generic | np.ndarray):
-                return value.tolist()
-            raise TypeError(f"cannot write {type(value).__name__} to JSON")
-
-        return json.dumps(report.to_dict(), default=plain, indent=2).encode("utf-8")
+        return json.dumps(report.to_dict(), indent=2, allow_nan=False).encode("utf-8")
     return (str(report) + "\n").encode("utf-8")
 
 
@@ -584,9 +709,19 @@ def _run_transform(arguments) -> int:
             f"the data lacks the column(s) {missing} the lift was fitted on "
             f"(it expects {lift.feature_names})."
         )
+    kept = _feature_list(arguments.keep, "--keep") or []
+    absent = [name for name in kept if name not in table.columns]
+    if absent:
+        raise ValueError(f"--keep names column(s) {absent} that the data lacks; the data has "
+                         f"{[str(c) for c in table.columns]}")
     lifted = lift.apply(select_columns(table, lift.feature_names))
     columns = lift.output_feature_names()  # the names DirectionLift gives in Python
-    write_table(arguments.out, pd.DataFrame(lifted, columns=columns))
+    clash = sorted(set(kept) & set(columns))
+    if clash:
+        raise UsageError(f"--keep columns {clash} have the names of lifted columns; rename them")
+    output = pd.concat([table[kept].reset_index(drop=True),
+                        pd.DataFrame(lifted, columns=columns)], axis=1)
+    write_table(arguments.out, output)
     print(f"{lifted.shape[0]} rows x {lifted.shape[1]} lifted columns written to {arguments.out}")
     return EXIT_OK
 
@@ -623,7 +758,8 @@ def _run_score(arguments) -> int:
     X, y, _ = _features_and_target(arguments, table)
     reference = None if arguments.reference is None else read_matrix(arguments.reference)
     ranking = score_candidates(arguments.candidates, X, y, reference=reference,
-                               random_state=arguments.seed)
+                               random_state=arguments.seed, n_jobs=arguments.jobs,
+                               progress=not arguments.quiet)
     data = table_bytes(arguments.out, ranking)
     with AtomicResult() as result:  # the table and its chart: both or neither
         atomic_write(result.file(arguments.out), lambda handle: handle.write(data))
@@ -650,6 +786,24 @@ def _run_report(arguments) -> int:
     _remove_stale_temporaries(arguments.lift, arguments.reference)
     lift = LiftMatrix.load(arguments.lift)
     reference = None if arguments.reference is None else read_matrix(arguments.reference)
+    if arguments.json:
+        import json
+
+        from ._tables import json_ready
+
+        record = {"lift": {"n_directions": lift.n_directions, "n_features": lift.n_features,
+                           "rank": lift.rank(), "feature_names": lift.feature_names},
+                  "diagnostics": lift.metadata.get("diagnostics")}
+        if reference is not None:
+            in_lift = lift.reference_in_lift_coordinates(reference)
+            record["reference"] = {
+                "off_subspace_weight": lift.leakage(in_lift),
+                "restricted_singular_value": lift.restricted_singular_value(in_lift),
+                "angles_degrees": (np.degrees(principal_angles(lift.subspace_basis, in_lift))
+                                   if lift.subspace_basis is not None
+                                   and lift.subspace_basis.shape[1] else None)}
+        print(json.dumps(json_ready(record), indent=2, allow_nan=False))
+        return EXIT_OK
     text = lift.metadata.get("report_text")
     if text is None:
         text = (f"lift with {lift.n_directions} directions on {lift.n_features} features, "
@@ -658,11 +812,12 @@ def _run_report(arguments) -> int:
     if reference is not None:
         reference = lift.reference_in_lift_coordinates(reference)
         print("\nreference subspace (from " + arguments.reference + ")")
-        print(f"  leakage                   {lift.leakage(reference):.4f}")
-        print(f"  restricted sing. value    {lift.restricted_singular_value(reference):.4f}")
+        print(f"  off-subspace weight       {lift.leakage(reference):.4f} (share of the lift's "
+              "direction weight outside the reference; not data leakage)")
+        print(f"  coverage sigma_min        {lift.restricted_singular_value(reference):.4f}")
         if lift.subspace_basis is not None and lift.subspace_basis.shape[1] > 0:
             angles = np.degrees(principal_angles(lift.subspace_basis, reference))
-            print("  angles to estimate        "
+            print("  angles to the estimate    "
                   + ", ".join(f"{a:.2f}" for a in angles) + " degrees (largest first)")
     return EXIT_OK
 
