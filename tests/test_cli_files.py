@@ -282,7 +282,8 @@ def test_saved_row_index_is_dropped_with_a_note(small_data, tmp_path):
 
 def fit_twice_with_seed(path, folder):
     for run in ("one", "two"):
-        code, _, err = run_here("fit", path, "--target", "y", "--estimator", "GradientOuterProduct", "--dim", "auto",
+        code, _, err = run_here("fit", path, "--target", "y", "--estimator",
+                                "GradientOuterProduct", "--dim", "auto",
                                 "--seed", "7", "--out", folder / f"{run}.npz")
         assert code == 0, err
     return [sl.LiftMatrix.load(folder / f"{run}.npz") for run in ("one", "two")]
@@ -302,7 +303,8 @@ def test_same_seed_same_report(small_data, tmp_path):
 
 def test_slices_option_sets_the_estimators_slices(small_data, tmp_path):
     path, _ = small_data
-    code, _, err = run_here("fit", path, "--target", "y", "--estimator", "SlicedAverageVariance", "--slices", "3",
+    code, _, err = run_here("fit", path, "--target", "y",
+                            "--estimator", "SlicedAverageVariance", "--slices", "3",
                             "--dim", "1", "--out", tmp_path / "lift.npz")
     assert code == 0, err
     assert sl.LiftMatrix.load(tmp_path / "lift.npz").metadata["estimator_params"][
