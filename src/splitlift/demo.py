@@ -107,7 +107,7 @@ def run_demo(
                                      n_jobs=-1),
         estimators={name: est.set_params(dim=2)
                     for name, est in demo_estimators(random_state).items()},
-        dims=(2,), cv=n_folds, random_state=random_state, progress=False,
+        dims=(2,), cv=n_folds, random_state=random_state,
     ).fit(X, y)
     summary = search.summary()
     out.write(f"\n3. will a lift help? {n_folds}-fold CV of RandomForestRegressor "

@@ -20,6 +20,7 @@ from sklearn.base import BaseEstimator, clone
 from sklearn.utils import check_random_state
 
 from . import geometry
+from ._progress import progress_bar
 from ._tables import html_table, json_ready, text_table
 from .moments import Whitening
 
@@ -224,6 +225,7 @@ class PermutationTest(BaseEstimator):
         top = min(_largest_candidate(estimator, d), d - 1)
         full = _fixed_dim(estimator, max(top, 1)).fit(Z, y)
         rows, chosen = [], top + 1 if top < d else d
+        bar = progress_bar((top + 1) * n_permutations, "permutation tests")
         for k in range(top + 1):
             observed = _tail_statistic(full.eigenvalues_, k)
             inside = full.directions_[:, :k]
@@ -235,12 +237,14 @@ class PermutationTest(BaseEstimator):
                 permuted = fixed + moving[generator.permutation(Z.shape[0])] @ outside.T
                 refit = _fixed_dim(estimator, max(top, 1)).fit(permuted, y)
                 null[draw] = _tail_statistic(refit.eigenvalues_, k)
+                bar.update(1)
             p_value = float((1 + np.sum(null >= observed)) / (1 + n_permutations))
             rows.append({"k": k, "statistic": observed, "null_draws": n_permutations,
                          "p_value": p_value})
             if p_value > alpha:
                 chosen = k
                 break
+        bar.close()
         chosen = min(chosen, d)
         return chosen, DimensionTest(f"permutation test, alpha = {alpha:g}", chosen, rows)
 
@@ -311,11 +315,13 @@ class LadleEstimator(BaseEstimator):
                           for rows in (generator.randint(0, n, n) for _ in range(n_boot)))
         full_bases = [np.linalg.qr(full.directions_[:, :k])[0] for k in range(1, top + 1)]
         variation = np.zeros(top + 1)
-        for directions in replicates:
-            for k in range(1, top + 1):
-                boot_basis = np.linalg.qr(directions[:, :k])[0]
-                cosines = np.cos(geometry.principal_angles(full_bases[k - 1], boot_basis))
-                variation[k] += (1.0 - np.prod(cosines)) / n_boot
+        with progress_bar(n_boot, "ladle resamples") as bar:
+            for directions in replicates:
+                for k in range(1, top + 1):
+                    boot_basis = np.linalg.qr(directions[:, :k])[0]
+                    cosines = np.cos(geometry.principal_angles(full_bases[k - 1], boot_basis))
+                    variation[k] += (1.0 - np.prod(cosines)) / n_boot
+                bar.update(1)
         eigen = np.abs(full.eigenvalues_)
         normalize = self.normalize
         if normalize == "auto":

@@ -124,8 +124,27 @@ def forest_speed(n_samples: int = 20_000, n_features: int = 10, n_trees: int = 1
     return benchmark_forest(n_samples, n_features, n_trees, random_state=0)
 
 
+def command_line_startup(repeats: int = 3) -> dict:
+    """Best wall time of ``python -m splitlift --help`` in a fresh process (lazy imports)."""
+    import subprocess
+    import sys
+    import time
+
+    seconds = []
+    for _ in range(repeats):
+        began = time.perf_counter()
+        subprocess.run([sys.executable, "-m", "splitlift", "--help"], check=True,
+                       capture_output=True)
+        seconds.append(time.perf_counter() - began)
+    return {"help_seconds": min(seconds), "repeats": repeats}
+
+
 def run_speed(quick: bool, out) -> dict:
     results = {}
+    startup = command_line_startup()
+    results["command_line_startup"] = startup
+    out.write(f"\ncommand-line start-up: splitlift --help in {startup['help_seconds']:.3f} s "
+              f"(best of {startup['repeats']} fresh processes)\n")
     n = 100_000 if quick else 1_000_000
     results["moment_methods"] = moment_methods(n, 20, 2 if quick else 3)
     out.write(f"\nmoment methods, n = {n}, d = 20 (best of repeats, seconds)\n")
