@@ -428,16 +428,8 @@ class DirectionLiftCV(TransformerMixin, BaseEstimator):
             lambda unit: _evaluate_unit(X, y, folds[unit[0]], unit[1], lifts, candidates,
                                         self.forest_, metric.scorer),
             units, len(units), "DirectionLiftCV", self.n_jobs, self.progress)
-        scores = np.full((len(candidates), len(folds)), np.nan)
-        seconds = np.zeros((len(candidates), len(folds)))
-        widths = np.zeros(len(candidates), dtype=int)
-        messages: dict[int, str] = {}
-        for (fold, _), outcome in zip(units, results, strict=True):
-            for index, score, elapsed, width, message in outcome:
-                scores[index, fold], seconds[index, fold] = score, elapsed
-                widths[index] = max(widths[index], width)
-                if message and index not in messages:
-                    messages[index] = message
+        scores, seconds, widths, messages = _collect(units, results, len(candidates),
+                                                     len(folds))
         self._check_estimators_ran(candidates, scores, messages)
         errors = metric.error(scores)
         self.best_index_, within = _one_standard_error_choice(candidates, errors)
@@ -653,6 +645,21 @@ def _evaluate_unit(X, y, fold, group: int, lifts, candidates, forest, scorer) ->
         outcome.append((index, score, lift_seconds + time.perf_counter() - started,
                         lifted_train[:, columns].shape[1], ""))
     return outcome
+
+
+def _collect(units, results, n_candidates: int, n_folds: int):
+    """Fold scores, fit seconds, output widths and first error message per candidate."""
+    scores = np.full((n_candidates, n_folds), np.nan)
+    seconds = np.zeros((n_candidates, n_folds))
+    widths = np.zeros(n_candidates, dtype=int)
+    messages: dict[int, str] = {}
+    for (fold, _), outcome in zip(units, results, strict=True):
+        for index, score, elapsed, width, message in outcome:
+            scores[index, fold], seconds[index, fold] = score, elapsed
+            widths[index] = max(widths[index], width)
+            if message and index not in messages:
+                messages[index] = message
+    return scores, seconds, widths, messages
 
 
 def _one_standard_error_choice(candidates, errors: np.ndarray) -> tuple[int, np.ndarray]:
