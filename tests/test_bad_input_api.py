@@ -179,18 +179,19 @@ def test_bad_geometry_and_lift_input_is_refused(call, words):
 
 
 @pytest.mark.parametrize("metadata, words", [
-    ({"feature_names": 5}, "feature_names must be a list"),
-    ({"feature_names": "ab"}, "single string"),
-    ({"feature_names": ["a", "a"]}, "repeated: 'a'"),
-    ({"feature_names": [["a"], ["b"]]}, "must hold strings"),
-    ({"info": [1, 2]}, "metadata must be a dict"),
-    ({"info": "notes"}, "metadata must be a dict"),
-    ({"info": {"weight_form": 3}}, "weight_form"),
+    ({"feature_names": 5}, "'feature_names' should be .*list of distinct strings, not a number"),
+    ({"feature_names": "ab"}, "'feature_names' should be .*, not a string"),
+    ({"feature_names": ["a", "a"]}, "'feature_names' should be .*distinct strings"),
+    ({"feature_names": [["a"], ["b"]]}, "'feature_names' should be .*list of distinct strings"),
+    ({"info": [1, 2]}, "'info' should be an object, not an array"),
+    ({"info": "notes"}, "'info' should be an object, not a string"),
+    ({"info": {"weight_form": 3}}, "'weight_form' should be a string"),
 ], ids=["names-int", "names-string", "names-duplicate", "names-nested", "info-list",
         "info-string", "info-weight-form"])
 def test_lift_file_with_wrong_metadata_types_is_a_lift_file_error(tmp_path, metadata, words):
+    # the file layer (persistence.read_lift_file) checks every metadata entry's type
     path = _save_with(tmp_path, **metadata)
-    with pytest.raises(sl.LiftFileError, match=f"invalid lift.*{words}.*save the lift again"):
+    with pytest.raises(sl.LiftFileError, match=f"{words}.*corrupt or was edited. Save the lift"):
         sl.LiftMatrix.load(path)
 
 
