@@ -25,6 +25,12 @@ EXACT_EXTENT_BELOW = 8
 LOCAL_CELL_BYTES = 1 << 18
 
 
+#: One routing record per node, 16 bytes, so a step down the tree reads one cache line. A
+#: leaf points to itself (``left`` = its own id, ``offset`` = +inf), so a step from a leaf
+#: stays there and points can move down in lockstep without testing for leaves.
+ROUTING_RECORD = np.dtype([("offset", np.float64), ("left", np.int32), ("direction", np.int32)])
+
+
 @njit(cache=True, nogil=True, inline="always")
 def _set_logged(box, position, value, log_position, log_value, log_length):
     """``box[position] = value``, remembering the old value; returns the new log length.
@@ -67,7 +73,7 @@ def _partition(columns, direction, orders, buffer, start, end, cut):
 
 
 @njit(cache=True, nogil=True)
-def grow_from_data(rows, columns, lifetime, seed):
+def grow_from_data(rows, columns, lifetime, seed, exponent):
     """Grow one Mondrian tree whose cells use the extent of their training points.
 
     Parameters
@@ -82,10 +88,14 @@ def grow_from_data(rows, columns, lifetime, seed):
     seed : int
         Seeds the random stream of the thread that grows the tree, so the
         tree depends on the seed alone.
+    exponent : int
+        The offsets are recorded multiplied by ``2**exponent``: in the units
+        of the lifted data when ``rows`` hold them divided by that power.
 
     Returns
     -------
-    direction, offset, left, parent, split_time : node arrays
+    records : ndarray of ROUTING_RECORD, shape (n_nodes,)
+    parent, split_time : node arrays
     leaf_of_point : ndarray of int32, shape (n,)
 
     Notes
@@ -169,8 +179,24 @@ def grow_from_data(rows, columns, lifetime, seed):
             waiting_birth.append(set_aside[item, 4])
             waiting_box.append(set_aside[item, 5:].copy())
             waiting_points.append(points[orders[buffer, start:end]])
-    return (direction[:n_nodes].copy(), offset[:n_nodes].copy(), left[:n_nodes].copy(),
+    return (routing_records(direction[:n_nodes], offset[:n_nodes], left[:n_nodes], exponent),
             parent[:n_nodes].copy(), split_time[:n_nodes].copy(), leaf_of_point)
+
+
+@njit(cache=True, nogil=True)
+def routing_records(direction, offset, left, exponent):
+    """Routing records of a tree's nodes, offsets multiplied by ``2**exponent``."""
+    records = np.empty(direction.size, ROUTING_RECORD)
+    for node in range(direction.size):
+        if direction[node] < 0:
+            records[node].offset = np.inf
+            records[node].left = node
+            records[node].direction = 0
+        else:
+            records[node].offset = np.ldexp(offset[node], exponent)
+            records[node].left = left[node]
+            records[node].direction = direction[node]
+    return records
 
 
 # what stopped _grow_cells: the subtree is done, or an array needs more room
@@ -393,107 +419,162 @@ def node_means(parent, counts, sums):
     return values
 
 
+# points routed together: their independent loads overlap in the memory system
+_LOCKSTEP = 8
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _route_group(rows, first, size, base, nodes, current):
+    """Move points ``first:first + size`` from the root to their leaves, in lockstep."""
+    for g in range(size):
+        current[g] = 0
+    moved = True
+    while moved:
+        moved = False
+        for g in range(size):
+            record = nodes[base + current[g]]
+            step = np.uint64(rows[np.uint64(first + g), np.uint64(record.direction)]
+                             > record.offset)
+            following = np.uint64(record.left) + step
+            moved |= following != current[g]
+            current[g] = following
+
+
 @njit(cache=True, nogil=True)
-def apply_forest(rows, tree_start, direction, offset, left, leaves):
+def apply_forest(rows, tree_start, nodes, leaves):
     """Leaf id (local to its tree) of every point in every tree, into ``leaves`` (n, n_trees)."""
+    current = np.zeros(_LOCKSTEP, np.uint64)
     for tree in range(tree_start.size - 1):
-        base = tree_start[tree]
-        for i in range(rows.shape[0]):
-            node = 0
-            while True:
-                cut_direction = direction[base + node]
-                if cut_direction < 0:
-                    break
-                node = left[base + node] + (rows[i, cut_direction] > offset[base + node])
-            leaves[i, tree] = node
+        base = np.uint64(tree_start[tree])
+        for first in range(0, rows.shape[0], _LOCKSTEP):
+            size = min(_LOCKSTEP, rows.shape[0] - first)
+            _route_group(rows, first, size, base, nodes, current)
+            for g in range(size):
+                leaves[first + g, tree] = current[g]
 
 
 @njit(cache=True, nogil=True)
-def add_leaf_values(rows, tree_start, direction, offset, left, value, total):
+def add_leaf_values(rows, tree_start, nodes, value, total):
     """Add every tree's leaf value for every point to ``total`` (n, n_outputs), tree by tree."""
-    n_outputs = value.shape[1]
+    current = np.zeros(_LOCKSTEP, np.uint64)
     for tree in range(tree_start.size - 1):
-        base = tree_start[tree]
-        for i in range(rows.shape[0]):
-            node = 0
-            while True:
-                cut_direction = direction[base + node]
-                if cut_direction < 0:
-                    break
-                node = left[base + node] + (rows[i, cut_direction] > offset[base + node])
-            for k in range(n_outputs):
-                total[i, k] += value[base + node, k]
+        base = np.uint64(tree_start[tree])
+        for first in range(0, rows.shape[0], _LOCKSTEP):
+            size = min(_LOCKSTEP, rows.shape[0] - first)
+            _route_group(rows, first, size, base, nodes, current)
+            for g in range(size):
+                for k in range(value.shape[1]):
+                    total[first + g, k] += value[base + current[g], k]
 
 
 @njit(cache=True, nogil=True)
-def leave_one_out_errors(first, leaves, tree_start, direction, parent, split_time, counts,
-                         value, targets, grid):
-    """Squared error, per grid lifetime, of leave-one-out forest predictions of training points.
+def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point, targets,
+                      grid, total, by_position):
+    """Add one tree's leave-one-out predictions of its training points at every lifetime.
 
     Parameters
     ----------
-    first : int
-        Index of the first training point of this block; the block is
-        ``leaves.shape[0]`` points long.
-    leaves : ndarray of int32, shape (n_block, n_trees)
-        Leaf of each training point of the block in each (fully grown) tree.
-    counts, value : node arrays
-        Training points and mean target of every node.
+    routing, parent, split_time, counts, value : node arrays of one tree
+    leaf_of_point : ndarray of int32, shape (n,)
+        Leaf of each training point in the (fully grown) tree.
+    targets : ndarray of shape (n, n_outputs)
     grid : ndarray, ascending
         Lifetimes, in the units of ``split_time``.
-
-    Returns
-    -------
-    ndarray of shape (n_grid,)
-        Summed over the block's points and the outputs.
+    total : ndarray of shape (n_outputs, n_grid, n)
+        Accumulates the predictions (one row of points per output and
+        lifetime: the scatter below then stays within the cache).
+    by_position : ndarray of shape (n_outputs, n_grid, n)
+        Scratch space (every entry is written before it is read).
 
     Notes
     -----
     A node is a leaf of the tree pruned at lifetime t exactly when
     ``birth <= t < split`` (a Mondrian tree at a smaller lifetime is the
-    same tree pruned; Lakshminarayanan, Roy & Teh 2014). Along the path of
-    a point these intervals tile the time axis, so one walk serves every
-    grid lifetime. A point's prediction in a cell leaves the point out:
-    ``(sum - y_i) / (count - 1)``; a cell holding only the point uses its
-    nearest ancestor holding others.
+    same tree pruned; Lakshminarayanan, Roy & Teh 2014), so every node
+    serves a run of grid lifetimes for all the points of its subtree. The
+    points are laid out so that every subtree is a contiguous run, and each
+    (point, lifetime) pair is then served exactly once. A point's
+    prediction in a cell leaves the point out, ``(sum - y_i) / (count - 1)``;
+    a cell holding only the point uses its nearest ancestor holding others.
     """
-    n_block, n_trees = leaves.shape
+    n_nodes = parent.size
     n_grid = grid.size
-    n_outputs = targets.shape[1]
-    largest = 0
-    for tree in range(n_trees):
-        largest = max(largest, tree_start[tree + 1] - tree_start[tree])
-    path = np.empty(largest, np.int64)
-    total = np.zeros((n_block, n_grid, n_outputs))
-    current = np.zeros(n_outputs)
-    for tree in range(n_trees):
-        base = tree_start[tree]
-        for i in range(n_block):
-            point = first + i
-            length = 0
-            node = leaves[i, tree]
-            while node >= 0:
-                path[length] = node
-                length += 1
-                node = parent[base + node]
-            g = 0
-            for step in range(length - 1, -1, -1):
-                node = base + path[step]
-                if counts[node] > 1:
-                    for k in range(n_outputs):
-                        current[k] = ((value[node, k] * counts[node] - targets[point, k])
-                                      / (counts[node] - 1))
-                while g < n_grid and (direction[node] < 0 or grid[g] < split_time[node]):
-                    for k in range(n_outputs):
-                        total[i, g, k] += current[k]
-                    g += 1
-    errors = np.zeros(n_grid)
-    for i in range(n_block):
+    start = np.zeros(n_nodes, np.int64)
+    for node in range(n_nodes):  # parents first: children split the parent's run
+        child = routing[node].left
+        if child != node:
+            start[child] = start[node]
+            start[child + 1] = start[node] + counts[child]
+    cursor = start.copy()
+    members = np.empty(leaf_of_point.size, np.int64)
+    for point in range(leaf_of_point.size):
+        leaf = leaf_of_point[point]
+        members[cursor[leaf]] = point
+        cursor[leaf] += 1
+    holder = np.zeros(n_nodes, np.int64)  # nearest ancestor-or-self with two points or more
+    for node in range(1, n_nodes):
+        holder[node] = node if counts[node] > 1 else holder[parent[node]]
+    # predictions by position first (runs of a subtree are contiguous), then by point
+    # node serves grid[first:stop]; its first is where its parent's run stopped
+    stops = np.empty(n_nodes, np.int64)
+    for node in range(n_nodes):
+        first = 0 if node == 0 else stops[parent[node]]
+        stop = first
+        if routing[node].left == node:
+            stop = n_grid
+        else:
+            while stop < n_grid and grid[stop] < split_time[node]:
+                stop += 1
+        stops[node] = stop
+        if first >= stop or counts[node] == 0:
+            continue
+        source = holder[node]
+        share = 1.0 / (counts[source] - 1)
+        for position in range(start[node], start[node] + counts[node]):
+            point = members[position]
+            for k in range(targets.shape[1]):
+                prediction = (value[source, k] * counts[source] - targets[point, k]) * share
+                for g in range(first, stop):
+                    by_position[k, g, position] = prediction
+    for k in range(targets.shape[1]):
         for g in range(n_grid):
-            for k in range(n_outputs):
-                residual = total[i, g, k] / n_trees - targets[first + i, k]
-                errors[g] += residual * residual
-    return errors
+            for position in range(leaf_of_point.size):
+                total[k, g, members[position]] += by_position[k, g, position]
+
+
+@njit(cache=True, nogil=True)
+def prune_tree(routing, parent, split_time, counts, value, lifetime):
+    """The tree at a smaller lifetime: cells born later dropped, later cuts made leaves."""
+    n_nodes = parent.size
+    new_id = np.full(n_nodes, -1, np.int64)
+    kept = 0
+    for node in range(n_nodes):  # parents first, so a kept node's parent is known
+        birth = 0.0 if node == 0 else split_time[parent[node]]
+        if birth <= lifetime:
+            new_id[node] = kept
+            kept += 1
+    pruned = np.empty(kept, ROUTING_RECORD)
+    pruned_parent = np.empty(kept, np.int32)
+    pruned_split = np.empty(kept)
+    pruned_counts = np.empty(kept, np.int32)
+    pruned_value = np.empty((kept, value.shape[1]))
+    for node in range(n_nodes):
+        target = new_id[node]
+        if target < 0:
+            continue
+        if routing[node].left != node and split_time[node] <= lifetime:
+            pruned[target] = routing[node]
+            pruned[target].left = new_id[routing[node].left]
+            pruned_split[target] = split_time[node]
+        else:
+            pruned[target].offset = np.inf
+            pruned[target].left = target
+            pruned[target].direction = 0
+            pruned_split[target] = np.inf
+        pruned_parent[target] = -1 if node == 0 else new_id[parent[node]]
+        pruned_counts[target] = counts[node]
+        pruned_value[target] = value[node]
+    return pruned, pruned_parent, pruned_split, pruned_counts, pruned_value
 
 
 @njit(cache=True, nogil=True)

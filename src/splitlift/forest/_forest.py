@@ -25,8 +25,8 @@ from .._validation import check_finite_matrix
 from ..lift import LiftMatrix
 from . import _compiled
 from ._lifetime import lifetime_grid
-from ._lifting import Lifting, binary_exponent
-from ._tree import ForestArrays, StitTree, on_lifted_clock, prune, tree_from_growth
+from ._lifting import Lifting, binary_exponent, times_power_of_two
+from ._tree import ForestArrays, StitTree, prune, tree_from_growth
 from ._window import grow_in_window, window_widths
 
 _SEED_BOUND = np.iinfo(np.int32).max
@@ -35,6 +35,10 @@ _FLAT_SIDE = 1.0
 # Query points are routed in blocks of this many, each through every tree in turn; a
 # point's sum over trees is then the same for any block size and any n_jobs.
 _BLOCK = 2048
+# Trees per batch when scoring lifetimes; fixed, so sums do not depend on n_jobs.
+_TREES_PER_BATCH = 8
+# Bytes of one batch's leave-one-out predictions (points x lifetimes x outputs).
+_TUNING_BYTES = 1 << 27
 # Points per leaf of the k-d ordering that keeps a cell's training points close in memory.
 _LOCALITY_LEAF = 32
 
@@ -133,7 +137,7 @@ class _StitForest(BaseEstimator):
                 linear, lifted_center, steps, lifted, targets, lifetime, seeds)
         self.lift_matrix_ = linear
         self._lifting = lifting
-        self._forest = ForestArrays([on_lifted_clock(tree, exponent) for tree in trees])
+        self._forest = ForestArrays(trees, clock_exponent=exponent)
         self.window_ = window
         self.lifetime_grid_ = None if grid is None else np.ldexp(grid, -exponent)
         self.lifetime_path_ = path
@@ -143,17 +147,15 @@ class _StitForest(BaseEstimator):
             _warn_if_out_of_range(self.lifetime_, float(np.ldexp(chosen, exponent)), exponent)
         else:
             self.lifetime_ = lifetime
-        self.n_leaves_ = np.array([tree.n_leaves for tree in self._forest.trees()])
+        self.n_leaves_ = self._forest.n_leaves()
         return self
 
     def _grow_on_data(self, lifted, targets, lifetime, seeds):
         """Trees grown on the data's extent, on a rescaled clock; with the tuning path."""
         n_samples = lifted.shape[0]
         exponent = binary_exponent(float(np.max(np.abs(lifted))))
-        rescaled = np.ldexp(lifted, -exponent)
-        # a k-d order of the points keeps each cell's points close together in memory
-        order = cKDTree(rescaled, leafsize=_LOCALITY_LEAF, balanced_tree=False,
-                        compact_nodes=False, copy_data=False).indices
+        rescaled = times_power_of_two(lifted, -exponent)
+        order = _locality_order(rescaled)  # keeps each cell's points close in memory
         rows = np.ascontiguousarray(rescaled[order])
         columns = np.ascontiguousarray(rows.T)
         targets = np.ascontiguousarray(targets[order])
@@ -169,8 +171,7 @@ class _StitForest(BaseEstimator):
         trees = [tree for tree, _ in grown]
         if not tuning:
             return trees, exponent, None, None
-        leaves = np.column_stack([leaf_of_point for _, leaf_of_point in grown])
-        chosen, path = self._tune(ForestArrays(trees), leaves, targets, grid)
+        chosen, path = self._tune(trees, [leaves for _, leaves in grown], targets, grid)
         return [prune(tree, chosen) for tree in trees], exponent, grid, path
 
     def _grow_in_window(self, linear, lifted_center, half, lifted, targets, lifetime, seeds):
@@ -198,27 +199,40 @@ class _StitForest(BaseEstimator):
         partitions = self._parallel(_grow_window_batch, normals, upper, grow_to, exponent,
                                     lifted_center, seeds, prefer="processes")
         leaves = ForestArrays(partitions).apply(lifted)
-        trees = [_filled(tree, np.ascontiguousarray(leaves[:, k]), targets)
-                 for k, tree in enumerate(partitions)]
+        leaves = [np.ascontiguousarray(leaves[:, k]) for k in range(len(partitions))]
+        trees = [_filled(tree, leaves[k], targets) for k, tree in enumerate(partitions)]
         if lifetime is None:
             if lifted.shape[0] < 2:
                 chosen, path = grid[0], None  # one point: every cell predicts the same value
             else:
-                chosen, path = self._tune(ForestArrays(trees), leaves, targets, grid)
+                chosen, path = self._tune(trees, leaves, targets, grid)
             trees = [prune(tree, chosen) for tree in trees]
         return trees, exponent, grid, path
 
-    def _tune(self, forest: ForestArrays, leaves, targets, grid):
-        """The grid lifetime with the smallest leave-one-out error, and the error path."""
-        n_samples = leaves.shape[0]
-        errors = Parallel(n_jobs=self.n_jobs, prefer="threads")(
-            delayed(_compiled.leave_one_out_errors)(
-                first, leaves[first : first + _BLOCK], forest.tree_start, forest.direction,
-                forest.parent, forest.split_time, forest.n_node_samples, forest.value,
-                targets, grid)
-            for first in range(0, n_samples, _BLOCK)
-        )
-        path = sum(errors) / n_samples
+    def _tune(self, trees: list[StitTree], leaves: list[np.ndarray], targets, grid):
+        """The grid lifetime with the smallest leave-one-out error, and the error path.
+
+        Trees are summed in batches of fixed size, in order, so the path is
+        the same for any ``n_jobs``.
+        """
+        n_samples, n_outputs = targets.shape
+        # outputs in groups, so that one batch's predictions stay within _TUNING_BYTES
+        group = max(1, _TUNING_BYTES // (8 * n_samples * grid.size))
+        errors = np.zeros(grid.size)
+        for first in range(0, n_outputs, group):
+            outputs = slice(first, first + group)
+            part = np.ascontiguousarray(targets[:, outputs])
+            batches = Parallel(n_jobs=self.n_jobs, prefer="threads", return_as="generator")(
+                delayed(_leave_one_out_batch)(trees[start : start + _TREES_PER_BATCH],
+                                              leaves[start : start + _TREES_PER_BATCH],
+                                              outputs, part, grid)
+                for start in range(0, len(trees), _TREES_PER_BATCH)
+            )
+            total = None
+            for batch in batches:
+                total = batch if total is None else total + batch
+            errors += ((total / len(trees) - part.T[:, None, :]) ** 2).sum(axis=(0, 2))
+        path = errors / n_samples
         return float(grid[int(np.argmin(path))]), path
 
     def _parallel(self, batch_function, *args, prefer: str = "threads") -> list:
@@ -247,11 +261,20 @@ class _StitForest(BaseEstimator):
         return np.require(self._lifting(X), requirements=["C", "W"])
 
     def _in_blocks(self, method: str, lifted: np.ndarray) -> np.ndarray:
+        """``ForestArrays.<method>`` over blocks of points, in k-d order.
+
+        Neighbouring points share most of their paths, so routing them one
+        after the other keeps those tree nodes in the cache.
+        """
+        order = _locality_order(lifted)
+        rows = np.ascontiguousarray(lifted[order])
         parts = Parallel(n_jobs=self.n_jobs, prefer="threads")(
-            delayed(getattr(self._forest, method))(lifted[first : first + _BLOCK])
-            for first in range(0, lifted.shape[0], _BLOCK)
+            delayed(getattr(self._forest, method))(rows[first : first + _BLOCK])
+            for first in range(0, rows.shape[0], _BLOCK)
         )
-        return np.concatenate(parts)
+        result = np.empty((rows.shape[0], parts[0].shape[1]), dtype=parts[0].dtype)
+        result[order] = np.concatenate(parts)
+        return result
 
     def apply(self, X) -> np.ndarray:
         """Leaf of every point in every tree.
@@ -277,6 +300,14 @@ _NEVER_STOPS = (
     "finite lifetime (at most about 1e300 times the window's size), lifetime='auto', or "
     "use extent='data'."
 )
+
+
+def _locality_order(points: np.ndarray) -> np.ndarray:
+    """A permutation listing the points leaf by leaf of a k-d tree (scipy's cKDTree)."""
+    if points.shape[0] <= _LOCALITY_LEAF:
+        return np.arange(points.shape[0])
+    return cKDTree(points, leafsize=_LOCALITY_LEAF, balanced_tree=False, compact_nodes=False,
+                   copy_data=False).indices
 
 
 def _effective_jobs(n_jobs) -> int:
@@ -305,11 +336,10 @@ def _grow_data_batch(rows, columns, targets, lifetime, exponent, seeds):
     """Grown trees (offsets in lifted units, times on the rescaled clock), with leaves."""
     grown = []
     for seed in seeds:
-        direction, offset, left, parent, split_time, leaf_of_point = _compiled.grow_from_data(
-            rows, columns, lifetime, seed)
+        routing, parent, split_time, leaf_of_point = _compiled.grow_from_data(
+            rows, columns, lifetime, seed, exponent)
         counts, sums = _compiled.node_sums(parent, leaf_of_point, targets)
-        tree = tree_from_growth(direction, np.ldexp(offset, exponent), left, parent,
-                                split_time, counts, sums, lifetime)
+        tree = tree_from_growth(routing, parent, split_time, counts, sums, lifetime)
         grown.append((tree, leaf_of_point))
     return grown
 
@@ -319,21 +349,31 @@ def _grow_window_batch(normals, upper, lifetime, exponent, lifted_center, seeds)
     partitions = []
     for seed in seeds:
         nodes = grow_in_window(normals, -upper, upper, lifetime, np.random.default_rng(seed))
-        internal = nodes["direction"] >= 0
-        offset = np.full(internal.size, np.nan)
-        offset[internal] = (np.ldexp(nodes["offset"][internal], exponent)
-                            + lifted_center[nodes["direction"][internal]])
-        n_nodes = internal.size
+        direction = nodes["direction"]
+        offset = np.ldexp(nodes["offset"], exponent) + lifted_center[np.maximum(direction, 0)]
+        routing = _compiled.routing_records(direction, offset, nodes["left"], 0)
+        n_nodes = direction.size
         partitions.append(tree_from_growth(
-            nodes["direction"], offset, nodes["left"], nodes["parent"], nodes["split_time"],
-            np.zeros(n_nodes, np.int32), np.zeros((n_nodes, 0)), lifetime))
+            routing, nodes["parent"], nodes["split_time"], np.zeros(n_nodes, np.int32),
+            np.zeros((n_nodes, 0)), lifetime))
     return partitions
+
+
+def _leave_one_out_batch(trees, leaves, outputs, targets, grid):
+    total = np.zeros((targets.shape[1], grid.size, targets.shape[0]))
+    scratch = np.empty_like(total)
+    for tree, leaf_of_point in zip(trees, leaves, strict=True):
+        value = np.ascontiguousarray(tree.value[:, outputs])
+        _compiled.add_leave_one_out(tree.routing, tree.parent, tree.split_time,
+                                    tree.n_node_samples, value, leaf_of_point, targets, grid,
+                                    total, scratch)
+    return total
 
 
 def _filled(tree: StitTree, leaf_of_point: np.ndarray, targets: np.ndarray) -> StitTree:
     counts, sums = _compiled.node_sums(tree.parent, leaf_of_point, targets)
-    return tree_from_growth(tree.direction, tree.offset, tree.left, tree.parent,
-                            tree.split_time, counts, sums, tree.lifetime)
+    return tree_from_growth(tree.routing, tree.parent, tree.split_time, counts, sums,
+                            tree.lifetime)
 
 
 _SHARED_PARAMETERS = """

@@ -98,3 +98,10 @@ def binary_exponent(largest: float) -> int:
     rate and time far from overflow and underflow.
     """
     return int(np.frexp(largest)[1]) if largest > 0 else 0
+
+
+def times_power_of_two(values: np.ndarray, exponent: int) -> np.ndarray:
+    """``values * 2**exponent``, exactly (a multiplication where ``2**exponent`` is a double)."""
+    if abs(exponent) <= 1000:
+        return values * np.ldexp(1.0, exponent)
+    return np.ldexp(values, exponent)
