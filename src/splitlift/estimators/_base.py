@@ -9,10 +9,12 @@ from numbers import Integral, Real
 import numpy as np
 from sklearn.base import BaseEstimator, ClassNamePrefixFeaturesOutMixin, TransformerMixin
 from sklearn.utils._param_validation import HasMethods, Interval, StrOptions
+from sklearn.utils.metaestimators import available_if
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from .._validation import check_dim, check_sample_count, check_sample_weight
 from ..dimension import RULES, SequentialChiSquare, resolve_rule
+from ..geometry import canonical_basis
 from ..loadings import loadings_frame
 from ..moments import (
     CollinearityWarning,
@@ -196,8 +198,7 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
                     f"or collinear columns; choose dim <= {usable} or remove redundant columns."
                 )
         self.dim_ = dim
-        self.basis_ = (np.linalg.qr(directions[:, :dim])[0] if dim
-                       else np.zeros((directions.shape[0], 0)))
+        self.basis_ = _orthonormal_basis(directions, dim, eigenvalues)
 
     @property
     def loadings_(self):
@@ -347,8 +348,13 @@ class MomentEstimator(SubspaceEstimator):
     _slice_scatter = False
     _response_moments = False
 
+    @available_if(lambda self: not getattr(self, "residuals", False))
     def partial_fit(self, X, y, sample_weight=None):
         """Add one batch of rows to the statistics and update the estimate.
+
+        Not available for residual-based pHd (``residuals=True``), which needs
+        the least-squares fit before its weighted moment: two passes over the
+        data (``fit`` makes them, in memory or on Dask input).
 
         The statistics of the batch are merged exactly with those of the
         earlier batches (and of a preceding :meth:`fit`), so fitting batch
@@ -559,6 +565,43 @@ def _refuse_rule_without_rows(rule) -> None:
             "estimator on them), which partial_fit and Dask fits do not keep; use "
             "dim_rule='chi2' (SlicedInverse, HessianDirections) or a fixed dim."
         )
+
+
+#: Eigenvalues equal to this relative precision count as tied (their directions
+#: are then defined only as a subspace).
+TIE_TOLERANCE = 1e-8
+
+
+def _orthonormal_basis(directions: np.ndarray, dim: int, eigenvalues: np.ndarray) -> np.ndarray:
+    """Orthonormal basis of the first ``dim`` directions, the same whichever eigenvectors
+    a solver returned for tied eigenvalues.
+
+    QR keeps the span of every leading group of directions; within a group
+    of tied eigenvalues only their joint span is defined, so its columns are
+    replaced by a canonical basis of it
+    (:func:`splitlift.geometry.canonical_basis`). When a tie
+    straddles ``dim`` (the data do not single out the subspace), the leading
+    columns of that canonical basis are kept, a reproducible choice.
+    """
+    if dim == 0:
+        return np.zeros((directions.shape[0], 0))
+    usable = int(np.sum(np.linalg.norm(directions, axis=0) > 0))
+    size = np.abs(eigenvalues[:usable])
+    tolerance = TIE_TOLERANCE * max(float(size.max()), np.finfo(float).tiny)
+    tied = np.abs(np.diff(size)) <= tolerance  # tied[i]: eigenvalues i and i + 1 tie
+    stop = dim
+    while stop < usable and tied[stop - 1]:
+        stop += 1
+    basis = np.linalg.qr(directions[:, :stop])[0]
+    start = 0
+    for end in range(1, stop + 1):
+        if end < stop and tied[end - 1]:
+            continue
+        if end - start > 1:
+            group = basis[:, start:end]
+            basis[:, start:end] = canonical_basis(group @ group.T, end - start)
+        start = end
+    return basis[:, :dim]
 
 
 def _largest_entry_positive(directions: np.ndarray) -> np.ndarray:

@@ -9,6 +9,10 @@ from ..moments import DEFAULT_RANK_TOLERANCE, Whitening
 from ..sufficient_statistics import MomentStatistics, ResponseMoments
 from ._base import MomentEstimator
 
+#: Residuals smaller than this fraction of the response's spread (a thousand
+#: times the float precision) are rounding error: y is fitted exactly.
+EXACT_FIT_TOLERANCE = 1e3 * np.finfo(float).eps
+
 
 class HessianDirections(MomentEstimator):
     """Principal Hessian directions (pHd).
@@ -119,19 +123,16 @@ class HessianDirections(MomentEstimator):
         slope = whitening.matrix.T @ (whitening.matrix @ covariance_xy)
         return slope, statistics.response.response.raw_mean - statistics.mean @ slope
 
-    def _block_statistics(self, X, y, weights, previous):
-        if self.residuals:
-            raise ValueError(
-                "residual-based pHd (residuals=True) needs the least-squares fit of y on X "
-                "before its weighted moment, i.e. two passes over the data, and partial_fit "
-                "sees each batch once; use residuals=False, or fit (in memory or on a Dask "
-                "collection, which makes the two passes)."
-            )
-        return super()._block_statistics(X, y, weights, previous)
-
     def _method_matrix(self, statistics, whitening, strict):
         moments = statistics.residuals if self.residuals else statistics.response
         _refuse_constant_response(statistics)
+        if self.residuals and moments.response.variance <= (
+                EXACT_FIT_TOLERANCE**2 * statistics.response.response.variance):
+            raise ValueError(
+                "the least-squares fit of y on X leaves no residual (y is a linear function "
+                "of X, or there are no more rows than columns), so residual-based pHd has "
+                "nothing to find; use residuals=False, or a linear model."
+            )
         self._weight_variance = moments.response.variance
         return whitening.whiten_moment(moments.weighted_scatter / statistics.weight)
 
