@@ -34,7 +34,7 @@ import numpy as np
 
 from .moments import (
     SliceScheme,
-    centred_cross_product,
+    _row_chunks,
     power_of_two_scale,
     scatter_about,
     slice_scatters,
@@ -56,19 +56,28 @@ def _outer(u: np.ndarray, v: np.ndarray) -> np.ndarray:
 class GroupMoments:
     """Weight, mean and centred scatter of the rows in each of G groups.
 
+    Means are kept relative to a ``shift`` common to the groups (zero, or
+    near the data's mean when that dominates the spread), so that
+    differences of means, which SIR needs, do not lose digits to a large
+    offset. Two sets of groups with different shifts merge exactly: the
+    difference of two nearby shifts is exact in floating point.
+
     Attributes
     ----------
     weight : ndarray of shape (G,)
         Total frequency weight of each group.
     rows : ndarray of shape (G,)
         Rows with positive weight in each group.
+    shift : ndarray of shape (d,)
     mean : ndarray of shape (G, d)
+        Means minus ``shift``.
     scatter : ndarray of shape (G, d, d) or None
         ``Σ w (x - mean)(x - mean)^T`` within each group, when kept.
     """
 
     weight: np.ndarray
     rows: np.ndarray
+    shift: np.ndarray
     mean: np.ndarray
     scatter: np.ndarray | None
 
@@ -76,8 +85,19 @@ class GroupMoments:
     def n_groups(self) -> int:
         return int(self.weight.size)
 
+    @property
+    def absolute_mean(self) -> np.ndarray:
+        return self.shift + self.mean
+
+    def relative_to(self, shift: np.ndarray) -> GroupMoments:
+        """The same groups with means relative to ``shift``."""
+        if np.array_equal(shift, self.shift):
+            return self
+        return replace(self, shift=shift, mean=self.mean + (self.shift - shift))
+
     def merge(self, other: GroupMoments) -> GroupMoments:
         """Group-by-group union of two sets of rows (Chan, Golub & LeVeque 1979)."""
+        other = other.relative_to(self.shift)
         total = self.weight + other.weight
         share = np.divide(other.weight, total, out=np.zeros_like(total), where=total > 0)
         delta = other.mean - self.mean
@@ -86,7 +106,7 @@ class GroupMoments:
         if self.scatter is not None and other.scatter is not None:
             scatter = self.scatter + other.scatter + (self.weight * share)[:, None, None] * _outer(
                 delta, delta)
-        return GroupMoments(total, self.rows + other.rows, mean, scatter)
+        return GroupMoments(total, self.rows + other.rows, self.shift, mean, scatter)
 
     def pooled(self) -> GroupMoments:
         """All groups as one (the between-group scatter added to the within-group one)."""
@@ -97,12 +117,14 @@ class GroupMoments:
         if self.scatter is not None:
             scatter = (self.scatter.sum(axis=0) + (deviations * self.weight[:, None]).T
                        @ deviations)[None]
-        return GroupMoments(np.array([total]), np.array([self.rows.sum()]), mean[None], scatter)
+        return GroupMoments(np.array([total]), np.array([self.rows.sum()]), self.shift,
+                            mean[None], scatter)
 
     def rescaled(self, factor: np.ndarray) -> GroupMoments:
         """The moments of the columns multiplied by ``factor``."""
         scatter = None if self.scatter is None else self.scatter * np.outer(factor, factor)
-        return replace(self, mean=self.mean * factor, scatter=scatter)
+        return replace(self, shift=self.shift * factor, mean=self.mean * factor,
+                       scatter=scatter)
 
     def placed(self, positions: np.ndarray, n_groups: int) -> GroupMoments:
         """These groups at ``positions`` among ``n_groups`` groups, empty groups elsewhere."""
@@ -114,7 +136,7 @@ class GroupMoments:
         if self.scatter is not None:
             scatter = np.zeros((n_groups, d, d))
             scatter[positions] = self.scatter
-        return GroupMoments(weight, rows, mean, scatter)
+        return GroupMoments(weight, rows, self.shift, mean, scatter)
 
 
 @dataclass(frozen=True)
@@ -140,11 +162,12 @@ class ScalarMoments:
         scale = float(np.ldexp(1.0, np.frexp(largest)[1])) if largest > 0 else 1.0
         scaled = values / scale
         total = float(values.size if weights is None else weights.sum())
-        mean = float(weighted_mean(scaled[:, None], weights)[0])
+        mean = float(scaled.sum() / total if weights is None else weights @ scaled / total)
         centred = scaled - mean
-        powers = [centred**2, centred**3, centred**4]
-        sums = [float(p.sum() if weights is None else weights @ p) for p in powers]
-        return cls(total, mean, *sums, scale)
+        square = centred * centred
+        weighted = square if weights is None else square * weights
+        sums = [weighted.sum(), weighted @ centred, weighted @ square]
+        return cls(total, mean, *(float(v) for v in sums), scale)
 
     @property
     def raw_mean(self) -> float:
@@ -201,24 +224,21 @@ class ResponseMoments:
     def of(cls, X: np.ndarray, y: np.ndarray, weights, inputs: GroupMoments) -> ResponseMoments:
         """Co-moments of ``y`` with the rows of ``X``, whose moments are ``inputs``."""
         response = ScalarMoments.of(y, weights)
-        centred = y - response.raw_mean
-        weighted = centred if weights is None else centred * weights
-        mean = inputs.mean[0]
-        cross = weighted @ X - weighted.sum() * mean
-        return cls(response, cross, centred_cross_product(X, mean, weighted))
+        return cls.about(X, y, weights, inputs.absolute_mean[0], response.raw_mean, response)
 
     @classmethod
     def about(cls, X: np.ndarray, y: np.ndarray, weights, centre: np.ndarray,
-              response_centre: float) -> ResponseMoments:
-        """Co-moments about centres known beforehand (a second pass over the data).
-
-        Sums about fixed centres simply add up over blocks (:meth:`added`).
-        """
+              response_centre: float, response: ScalarMoments | None = None) -> ResponseMoments:
+        """Co-moments about given centres (of a second pass: they add up, :meth:`added`)."""
         centred = y - response_centre
         weighted = centred if weights is None else centred * weights
-        cross = weighted @ X - weighted.sum() * centre
-        return cls(ScalarMoments.of(y, weights), cross,
-                   centred_cross_product(X, centre, weighted))
+        cross, scatter = np.zeros(X.shape[1]), np.zeros((X.shape[1], X.shape[1]))
+        for rows in _row_chunks(X.shape[0], X.shape[1]):
+            block = X[rows] - centre  # centred chunk by chunk: no offset cancels
+            cross += weighted[rows] @ block
+            scatter += (block * weighted[rows, None]).T @ block
+        return cls(ScalarMoments.of(y, weights) if response is None else response, cross,
+                   scatter)
 
     def added(self, other: ResponseMoments) -> ResponseMoments:
         """Union of two blocks whose co-moments are about the same fixed centres."""
@@ -242,7 +262,7 @@ class ResponseMoments:
         if wa == 0 or wb == 0:
             return other if wa == 0 else self
         total = wa + wb
-        delta_x = other_inputs.mean[0] - inputs.mean[0]
+        delta_x = other_inputs.relative_to(inputs.shift).mean[0] - inputs.mean[0]
         delta_y = other.response.raw_mean - self.response.raw_mean
         shift_a, shift_b = -wb / total * delta_x, wa / total * delta_x
         offset_a, offset_b = -wb / total * delta_y, wa / total * delta_y
@@ -299,7 +319,12 @@ class MomentStatistics:
 
     @property
     def mean(self) -> np.ndarray:
-        return self.inputs.mean[0]
+        """Column means of ``X / column_scale``."""
+        return self.inputs.absolute_mean[0]
+
+    def deviations(self, groups: GroupMoments) -> np.ndarray:
+        """Group means minus the overall mean, (G, d), without losing digits to an offset."""
+        return groups.relative_to(self.inputs.shift).mean - self.inputs.mean[0]
 
     @property
     def covariance(self) -> np.ndarray:
@@ -378,32 +403,54 @@ def merge_all(parts) -> MomentStatistics:
     return parts[0]
 
 
-def safe_column_scale(X: np.ndarray) -> np.ndarray:
-    """Ones for ordinary columns; powers of two for columns whose squares leave the float range.
+def safe_column_scale(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Column scales that keep every product in the float range, and the columns' squares.
 
-    A cheap sum of squares decides; only when it is out of range (or zero:
-    a constant zero column, or squares that underflowed) is the exact rule of :func:`splitlift.moments.power_of_two_scale` applied.
+    Ones for ordinary columns; where a column's sum of squares leaves a safe
+    range (or is zero: a zero column, or squares that underflowed) the exact
+    power-of-two rule of :func:`splitlift.moments.power_of_two_scale` is
+    applied. Returns ``(scale, squares)`` with the sums of squares of
+    ``X / scale``.
     """
-    if X.shape[0] == 0:
-        return np.ones(X.shape[1])
     squares = np.einsum("ij,ij->j", X, X)
     low, high = _SAFE_SQUARES
-    if np.all((squares >= low) & (squares <= high)):  # also false for NaN
-        return np.ones(X.shape[1])
-    return power_of_two_scale(X)
+    if X.shape[0] == 0 or np.all((squares >= low) & (squares <= high)):  # False for NaN
+        return np.ones(X.shape[1]), squares
+    scale = power_of_two_scale(X)
+    return scale, np.einsum("ij,ij->j", X / scale, X / scale)
 
 
-def input_moments(X: np.ndarray, weights=None) -> GroupMoments:
-    """Weight, mean and scatter of all rows of ``X``, one group (zeros when it has none)."""
-    if X.shape[0] == 0:
-        d = X.shape[1]
-        return GroupMoments(np.zeros(1), np.zeros(1, dtype=np.int64), np.zeros((1, d)),
-                            np.zeros((1, d, d)))
-    total = float(X.shape[0] if weights is None else weights.sum())
-    mean = weighted_mean(X, weights)
-    rows = X.shape[0] if weights is None else int(np.count_nonzero(weights))
-    return GroupMoments(np.array([total]), np.array([rows]), mean[None],
-                        scatter_about(X, mean, weights)[None])
+def _shift_for(mean: np.ndarray, squares: np.ndarray, n_rows: int) -> np.ndarray:
+    """Zero while no column's mean dominates its spread (raw sums lose at most a digit,
+    as in :func:`splitlift.moments.scatter_about`), else the block's mean."""
+    if n_rows == 0 or np.all(n_rows * mean**2 <= 0.9 * squares):
+        return np.zeros_like(mean)
+    return mean
+
+
+def _shifted_sums(X, shift, weights, labels, n_slices, sums):
+    """``Σ w (x - shift)``, ``Σ w (x - shift)(x - shift)^T`` and the slice sums, one pass.
+
+    With a zero shift (``sums`` then already known) these are single matrix
+    products over ``X``; else the rows are shifted chunk by chunk (each chunk
+    stays in cache).
+    """
+    d = X.shape[1]
+    if not np.any(shift):
+        second = scatter_about(X, np.zeros(d), weights) if weights is not None else X.T @ X
+        groups = None if labels is None else slice_sums(X, labels, n_slices, weights)
+        return sums, second, groups
+    sums, second = np.zeros(d), np.zeros((d, d))
+    groups = None if labels is None else np.zeros((n_slices, d))
+    for rows in _row_chunks(X.shape[0], d):
+        block = X[rows] - shift
+        weighted = block if weights is None else block * weights[rows, None]
+        sums += weighted.sum(axis=0)
+        second += weighted.T @ block
+        if labels is not None:
+            groups += slice_sums(block, labels[rows], n_slices,
+                                 None if weights is None else weights[rows])
+    return sums, second, groups
 
 
 def block_statistics(X: np.ndarray, y=None, weights=None, *, scheme: SliceScheme | None = None,
@@ -434,29 +481,43 @@ def block_statistics(X: np.ndarray, y=None, weights=None, *, scheme: SliceScheme
         y = None if y is None else y[kept]
         labels = None if labels is None else labels[kept]
     X = np.asarray(X, dtype=np.float64)
-    column_scale = safe_column_scale(X)
+    n, d = X.shape
+    column_scale, squares = safe_column_scale(X)
     if not np.all(column_scale == 1.0):
         X = X / column_scale
+    total = float(n if weights is None else weights.sum())
+    mean = weighted_mean(X, weights) if n else np.zeros(d)
+    shift = _shift_for(mean, squares, n)
+    n_slices = 0 if scheme is None else scheme.n_slices
+    if scheme is not None and labels is None:
+        labels = scheme.labels(y)
+    rows = None if scheme is None else np.bincount(labels, minlength=n_slices)
     slices = None
-    if scheme is not None:
-        labels = scheme.labels(y) if labels is None else labels
-        rows = np.bincount(labels, minlength=scheme.n_slices)
-        if slice_scatter:
-            totals, means, scatters = slice_scatters(X, labels, scheme.n_slices, weights)
-            slices = GroupMoments(totals, rows, means, scatters)
-            inputs = slices.pooled() if X.shape[0] else input_moments(X, weights)
-        else:
-            totals = rows.astype(float) if weights is None else np.bincount(
-                labels, weights, minlength=scheme.n_slices)
-            sums = slice_sums(X, labels, scheme.n_slices, weights)
-            means = np.divide(sums, totals[:, None], out=np.zeros_like(sums),
-                              where=totals[:, None] > 0)
-            slices = GroupMoments(totals, rows, means, None)
-            inputs = input_moments(X, weights)
+    if slice_scatter:  # SAVE: every slice's own scatter; the inputs' moments pool them
+        totals, means, scatters = slice_scatters(X - shift if np.any(shift) else X, labels,
+                                                 n_slices, weights)
+        slices = GroupMoments(totals, rows, shift, means, scatters)
+        inputs = slices.pooled() if n else _empty(d, shift)
     else:
-        inputs = input_moments(X, weights)
+        sums, second, groups = _shifted_sums(X, shift, weights, labels, n_slices, mean * total)
+        if n == 0:
+            inputs = _empty(d, shift)
+        else:
+            mean = sums / total
+            inputs = GroupMoments(np.array([total]), np.array([n]), shift, mean[None],
+                                  (second - total * np.outer(mean, mean))[None])
+        if scheme is not None:
+            totals = rows.astype(float) if weights is None else np.bincount(
+                labels, weights, minlength=n_slices)
+            means = np.divide(groups, totals[:, None], out=np.zeros_like(groups),
+                              where=totals[:, None] > 0)
+            slices = GroupMoments(totals, rows, shift, means, None)
     moments = None
     if response:
         moments = ResponseMoments.of(X, np.asarray(y, dtype=np.float64), weights, inputs)
     return MomentStatistics(column_scale, inputs, slices, scheme, moments)
 
+
+def _empty(d: int, shift: np.ndarray) -> GroupMoments:
+    return GroupMoments(np.zeros(1), np.zeros(1, dtype=np.int64), shift, np.zeros((1, d)),
+                        np.zeros((1, d, d)))

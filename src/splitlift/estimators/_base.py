@@ -145,9 +145,12 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         eigenvalues, directions = self._scale_safe_decomposition(X, y, weights)
         self._set_estimate(eigenvalues, directions, X, y, weights)
         self.fit_warnings_ = _issue(self._quality_reasons(X, y, weights))
-        self._feature_scale = column_location_scale(X / self.column_scale_, weights)[1] * \
-            self.column_scale_
+        self._feature_scale = self._feature_spread(X, weights)
         return self
+
+    def _feature_spread(self, X, weights) -> np.ndarray:
+        """Standard deviation of every input column (for ``standardised_loadings_``)."""
+        return column_location_scale(X / self.column_scale_, weights)[1] * self.column_scale_
 
     def _validated(self, X, y, sample_weight, reset: bool):
         """Checked float inputs, response and weights; zero-weight rows dropped."""
@@ -239,7 +242,7 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         return self._in_input_units(eigenvalues, directions, scale)
 
     def _scaled_decomposition(self, X, y, weights):
-        scale = safe_column_scale(X)
+        scale = safe_column_scale(X)[0]
         rescaled = not np.all(scale == 1.0)
         eigenvalues, directions = self._eigen_decomposition(X / scale if rescaled else X, y,
                                                             weights)
@@ -269,12 +272,18 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         reasons = [_few_rows(n, d)]
         numeric = not _is_discrete(y)
         if numeric and self._weights_rows_by_response:
-            reasons.append(self._heavy_tail(ScalarMoments.of(y.astype(float), weights)))
+            reasons.append(self._heavy_tail(self._response_summary(y, weights)))
         if numeric and y.size:
             reasons.append(_dominant_value(_largest_value_share(y, weights)))
         if self._neighbourhoods_in_standardised_inputs and d > 1:
             reasons.append(_ill_conditioned(X / self.column_scale_, weights))
         return [reason for reason in reasons if reason] + self._method_warnings()
+
+    def _response_summary(self, y, weights) -> ScalarMoments:
+        response = getattr(getattr(self, "statistics_", None), "response", None)
+        if response is not None:  # pHd gathered them already, from these very rows
+            return response.response
+        return ScalarMoments.of(y.astype(float), weights)
 
     def _heavy_tail(self, response: ScalarMoments) -> str | None:
         kurtosis = response.excess_kurtosis()
@@ -424,8 +433,12 @@ class MomentEstimator(SubspaceEstimator):
             *self._decompose(statistics, strict), statistics.column_scale)
         self._set_estimate(eigenvalues, directions)
         self.fit_warnings_ = _issue(self._statistics_reasons(statistics))
-        spread = np.sqrt(np.clip(np.diag(statistics.covariance), 0.0, None))
-        self._feature_scale = spread * statistics.column_scale
+        self._feature_scale = self._feature_spread(None, None)
+
+    def _feature_spread(self, X, weights) -> np.ndarray:
+        """Standard deviations from the statistics: no further pass over the data."""
+        spread = np.sqrt(np.clip(np.diag(self.statistics_.covariance), 0.0, None))
+        return spread * self.statistics_.column_scale
 
     def _scaled_decomposition(self, X, y, weights):
         statistics = self._statistics(X, y, weights)
@@ -545,7 +558,8 @@ class SlicedMomentEstimator(MomentEstimator):
             )
         self.n_slices_ = int(kept.sum())
         self.slice_edges_ = scheme.edges
-        return GroupMoments(slices.weight[kept], slices.rows[kept], slices.mean[kept],
+        return GroupMoments(slices.weight[kept], slices.rows[kept], slices.shift,
+                            slices.mean[kept],
                             None if slices.scatter is None else slices.scatter[kept])
 
     def _method_warnings(self) -> list[str]:
@@ -655,14 +669,17 @@ def _dominant_value(share: float) -> str | None:
 def _largest_value_share(y: np.ndarray, weights) -> float:
     """Share of the rows (or weight) held by the most frequent value of ``y``.
 
-    A value holding more than half of the rows must be the median, so one
-    partial sort and one count decide it without sorting all of ``y``.
+    A value holding more than half of the rows (weight) must be the
+    (weighted) median, so counting the median's rows decides it: one
+    partial sort unweighted, one sort weighted.
     """
-    if weights is not None:
-        _, inverse = np.unique(y, return_inverse=True)
-        return float(np.bincount(inverse.ravel(), weights).max() / weights.sum())
-    median = np.partition(y, y.size // 2)[y.size // 2]
-    return float(np.count_nonzero(y == median) / y.size)
+    if weights is None:
+        median = np.partition(y, y.size // 2)[y.size // 2]
+        return float(np.count_nonzero(y == median) / y.size)
+    order = np.argsort(y)
+    cumulative = np.cumsum(weights[order])
+    median = y[order][min(np.searchsorted(cumulative, cumulative[-1] / 2), y.size - 1)]
+    return float(weights[y == median].sum() / cumulative[-1])
 
 
 def _ill_conditioned(X: np.ndarray, weights) -> str | None:

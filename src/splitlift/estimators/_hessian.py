@@ -106,7 +106,7 @@ class HessianDirections(MomentEstimator):
             return statistics
         # second pass: co-moments of the OLS residuals, about centres known from the first
         slope, centre = self.residual_slope(statistics)
-        scaled = X / statistics.column_scale
+        scaled = X if np.all(statistics.column_scale == 1.0) else X / statistics.column_scale
         residuals = y - scaled @ slope
         return statistics.with_residuals(ResponseMoments.about(
             scaled, residuals, weights, statistics.mean, centre))

@@ -117,7 +117,7 @@ class SlicedInverse(SlicedMomentEstimator):
     def _method_matrix(self, statistics, whitening, strict):
         slices = self._usable_slices(statistics, strict)
         proportions = slices.weight / statistics.weight
-        means = (slices.mean - statistics.mean) @ whitening.matrix.T
+        means = statistics.deviations(slices) @ whitening.matrix.T
         self._slice_fit = (proportions, means)
         return (means * proportions[:, None]).T @ means
 
