@@ -438,7 +438,7 @@ def _refuse_constant(n_distinct: int) -> None:
 
 
 def array_split_starts(n_rows: int, n_slices: int) -> np.ndarray:
-    """Positions where ``np.array_split`` of ``n_rows`` items into ``n_slices`` parts starts parts 1..H-1."""
+    """Start positions of parts 1 .. H-1 when ``np.array_split`` cuts ``n_rows`` into H parts."""
     sizes = np.full(n_slices, n_rows // n_slices)
     sizes[: n_rows % n_slices] += 1
     return np.cumsum(sizes)[:-1]
