@@ -65,7 +65,8 @@ def is_dask_collection(obj) -> bool:
 
 
 def _is_frame(obj) -> bool:
-    return hasattr(obj, "columns") and hasattr(obj, "map_partitions")
+    """A Dask DataFrame (a Dask Series has partitions too, but one dimension)."""
+    return hasattr(obj, "map_partitions") and getattr(obj, "ndim", None) == 2
 
 
 # ------------------------------------------------------------------ alignment
@@ -82,7 +83,7 @@ class _Blocks:
     n_features: int
 
 
-def _register_features(estimator, X, reset: bool) -> None:
+def register_features(estimator, X, reset: bool) -> None:
     """Set or check ``n_features_in_`` and ``feature_names_in_`` from a Dask collection's meta."""
     from sklearn.utils.validation import _check_feature_names, _check_n_features
 
@@ -137,10 +138,9 @@ def _companion(values, X, name: str):
     return da.from_array(array, chunks=(X.chunks[0],))
 
 
-def _delayed_parts(collection) -> list:
-    parts = collection.to_delayed()
-    return list(np.ravel(parts)) if not _is_frame(collection) and hasattr(parts, "shape") \
-        else list(parts)
+def _delayed_parts(array) -> list:
+    """Row chunks of a Dask array (all columns in one chunk) as delayed objects."""
+    return list(np.ravel(array.to_delayed()))
 
 
 def _aligned_blocks(X, y, sample_weight) -> _Blocks:
@@ -154,21 +154,49 @@ def _aligned_blocks(X, y, sample_weight) -> _Blocks:
             raise ValueError(
                 f"{name} must be 1-D (a Dask array or Series); select a single column."
             )
-        _check_same_chunks(X, part, name)
-    x_parts = _delayed_parts(X)
-    y_parts = _delayed_parts(y) if y is not None else [None] * len(x_parts)
-    w_parts = _delayed_parts(weights) if weights is not None else [None] * len(x_parts)
+        if _is_frame(X) != hasattr(part, "npartitions"):
+            raise ValueError(
+                f"X is a Dask {'DataFrame' if _is_frame(X) else 'array'} but {name} is not of "
+                f"the same kind; take {name} from the same DataFrame (a Series), or pass "
+                "arrays chunked alike."
+            )
+        if not _is_frame(X):
+            _check_same_chunks(X, part, name)
+    if _is_frame(X):
+        x_parts, y_parts, w_parts = _frame_parts(X, y, weights)
+    else:
+        x_parts = _delayed_parts(X)
+        y_parts = _delayed_parts(y) if y is not None else [None] * len(x_parts)
+        w_parts = _delayed_parts(weights) if weights is not None else [None] * len(x_parts)
     rows = None if _is_frame(X) or np.isnan(X.shape[0]) else int(X.shape[0])
     n_features = len(X.columns) if _is_frame(X) else int(X.shape[1])
     return _Blocks(x_parts, y_parts, w_parts, y, weights, rows, n_features)
 
 
+_RESPONSE, _WEIGHT = "__splitlift_response__", "__splitlift_weight__"
+
+
+def _frame_parts(X, y, weights):
+    """Partitions of X, y and weights from one joined DataFrame.
+
+    Dask may regroup the partitions of separately optimised collections
+    (reading fewer columns of small files), so the three are joined first
+    and each partition is split afterwards: its rows then always agree.
+    """
+    columns = list(X.columns)
+    extra = {name: part for name, part in ((_RESPONSE, y), (_WEIGHT, weights))
+             if part is not None}
+    joined = X.assign(**extra) if extra else X
+    parts = joined.to_delayed()
+    x_parts = [part[columns] for part in parts]
+    y_parts = [part[_RESPONSE] if y is not None else None for part in parts]
+    w_parts = [part[_WEIGHT] if weights is not None else None for part in parts]
+    return x_parts, y_parts, w_parts
+
+
 def _check_same_chunks(X, part, name: str) -> None:
-    x_blocks = X.npartitions if _is_frame(X) else X.numblocks[0]
-    part_blocks = part.npartitions if _is_frame(part) or hasattr(part, "npartitions") \
-        else part.numblocks[0]
-    known = (not _is_frame(X) and not hasattr(part, "npartitions")
-             and not any(np.isnan(c) for c in X.chunks[0] + part.chunks[0]))
+    x_blocks, part_blocks = X.numblocks[0], part.numblocks[0]
+    known = not any(np.isnan(c) for c in X.chunks[0] + part.chunks[0])
     if x_blocks != part_blocks or (known and X.chunks[0] != part.chunks[0]):
         raise ValueError(
             f"X and {name} are chunked differently ({x_blocks} vs {part_blocks} row chunks"
@@ -372,7 +400,7 @@ def fit_on_dask(estimator, X, y, sample_weight=None):
     blocks = _aligned_blocks(X, y, sample_weight)
     if blocks.y_collection is None:
         raise ValueError("y is required: pass the response aligned with X.")
-    _register_features(estimator, _as_dask(X), reset=True)
+    register_features(estimator, _as_dask(X), reset=True)
     if isinstance(estimator, MomentEstimator):
         _fit_moments(estimator, blocks)
     else:
@@ -445,7 +473,7 @@ def sample_rows(X, blocks: _Blocks, limit: int, random_state):
             taken.append(dask.delayed(_take_rows)(x, y, w, local))
     pieces = dask.compute(*taken)
     X_sample = _concatenate([p[0] for p in pieces])
-    y_sample = np.concatenate([np.asarray(p[1]) for p in pieces])
+    y_sample = None if blocks.y[0] is None else np.concatenate([p[1] for p in pieces])
     w_sample = None if blocks.weights[0] is None else np.concatenate([p[2] for p in pieces])
     return X_sample, y_sample, w_sample, total
 
@@ -474,10 +502,15 @@ def _concatenate(parts):
     return np.concatenate(parts)
 
 
-def sample_of(X, limit: int, random_state=0):
-    """At most ``limit`` uniformly drawn rows of a Dask collection, in memory (for diagnostics)."""
-    blocks = _aligned_blocks(X, None, None)
-    return sample_rows(_as_dask(X), blocks, limit, random_state)[0]
+def sample_of(X, limit: int, random_state=0, y=None):
+    """At most ``limit`` uniformly drawn rows of a Dask collection, in memory.
+
+    Returns the rows of ``X`` (a pandas DataFrame for a Dask DataFrame), or
+    ``(X_rows, y_rows)`` when ``y`` is given. For diagnostics and plots.
+    """
+    blocks = _aligned_blocks(X, y, None)
+    X_rows, y_rows, _, _ = sample_rows(_as_dask(X), blocks, limit, random_state)
+    return X_rows if y is None else (X_rows, y_rows)
 
 
 def location_scale(X, sample_weight=None) -> tuple[np.ndarray, np.ndarray, int]:
@@ -503,16 +536,24 @@ def lifted_extent(X, matrix: np.ndarray) -> float:
 
 # ----------------------------------------------------------------- transforms
 def transform_lazily(estimator, X, function):
-    """``function`` applied chunk by chunk to a Dask collection, lazily.
+    """An estimator's transform of a Dask collection, lazily (columns and names checked first).
 
     ``function`` maps a NumPy block (float64, or float32 when X is float32)
-    to its output rows. A Dask DataFrame gives a Dask DataFrame with the
-    estimator's output feature names and the input's index; a Dask array
-    gives a Dask array. Column count (and names) are checked first.
+    to its output rows; the output is named by ``get_feature_names_out()``.
     """
     X = _as_dask(X)
-    _register_features(estimator, X, reset=False)
-    names = [str(name) for name in estimator.get_feature_names_out()]
+    register_features(estimator, X, reset=False)
+    return apply_lazily(X, function, [str(name) for name in estimator.get_feature_names_out()])
+
+
+def apply_lazily(X, function, names: list[str]):
+    """``function`` applied chunk by chunk to a Dask collection, lazily.
+
+    A Dask DataFrame gives a Dask DataFrame with columns ``names`` and the
+    input's index; a Dask array gives a Dask array. float32 input stays
+    float32 (all columns float32 for a DataFrame).
+    """
+    X = _as_dask(X)
     if _is_frame(X):
         import pandas as pd
 

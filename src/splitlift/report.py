@@ -126,6 +126,12 @@ class LiftReport:
         moment = isinstance(lift.estimator_, MomentEstimator)
         if check is not None and moment and check.message():
             notes.append(check.message())
+        sample = getattr(lift.estimator_, "row_sample_", None)
+        if sample is not None and sample["rows_used"] < sample["rows_total"]:
+            notes.append(
+                f"{type(lift.estimator_).__name__} was fitted on a uniform random sample of "
+                f"{sample['rows_used']} of the {sample['rows_total']} rows (Dask input; "
+                "gradient methods need their rows in memory); raise sample_rows for more.")
         if stability is not None:
             comparisons[0].bootstrap_leakage = stability.leakage_quantiles()
         standardised = lift.standardised_loadings_

@@ -16,6 +16,7 @@ from .dask_support import (
     is_dask_collection,
     lifted_extent,
     location_scale,
+    register_features,
     sample_of,
     transform_lazily,
 )
@@ -243,6 +244,7 @@ class DirectionLift(TransformerMixin, BaseEstimator):
 
     def _fit_standardisation_lazily(self, X, sample_weight):
         """Dask input: one pass for the column moments; the standardised data stay lazy."""
+        register_features(self, X, reset=True)
         mean, scale, self.n_samples_fit_ = location_scale(X, sample_weight)
         d = mean.size
         if not self.standardize:

@@ -142,6 +142,7 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
             return fit_on_dask(self, X, y, sample_weight)
         X, y, weights = self._validated(X, y, sample_weight, reset=True)
         self._check_dim_setting(X.shape[1])
+        self.row_sample_ = None  # all rows were in memory
         eigenvalues, directions = self._scale_safe_decomposition(X, y, weights)
         self._set_estimate(eigenvalues, directions, X, y, weights)
         self.fit_warnings_ = _issue(self._quality_reasons(X, y, weights))

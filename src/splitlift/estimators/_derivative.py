@@ -72,10 +72,15 @@ class AverageDerivative(SubspaceEstimator):
         density that are left out of the average, where the estimated score
         is unreliable. Must lie in [0, 1). Ignored when
         ``density_weighted=True``.
+    sample_rows : int or None, default None
+        Dask input only: the fit uses a uniform random sample of at most this
+        many rows, loaded into memory (the pairwise sums are quadratic in
+        the rows); None means 20 000. Recorded in ``row_sample_``.
     random_state : int, RandomState instance or None, default None
-        Seeds the resampling of the ``dim="auto"`` rule (bootstrap,
-        permutations or folds) when the rule's own ``random_state`` is None,
-        so that one seed makes the whole fit reproducible.
+        Seeds the row sample of Dask input and the resampling of the
+        ``dim="auto"`` rule (bootstrap, permutations or folds) when the
+        rule's own ``random_state`` is None, so that one seed makes the
+        whole fit reproducible.
 
     Attributes
     ----------
@@ -103,6 +108,9 @@ class AverageDerivative(SubspaceEstimator):
     n_slices_ : int
         Slices used (1 without slicing).
     dim_ : int
+    row_sample_ : dict or None
+        For Dask input, the row sample fitted on: ``rows_total``,
+        ``rows_used`` and ``random_state``; None for in-memory input.
     n_features_in_ : int
     feature_names_in_ : ndarray of str
         Present when ``X`` had string column names.
@@ -178,18 +186,20 @@ class AverageDerivative(SubspaceEstimator):
         "density_weighted": ["boolean"],
         "n_slices": [Interval(Integral, 2, None, closed="left"), None],
         "trim": [Interval(Real, 0, 1, closed="left")],
+        "sample_rows": [Interval(Integral, 1, None, closed="left"), None],
     }
 
     _weights_rows_by_response = True
 
     def __init__(self, dim=1, dim_rule=None, bandwidth=None, density_weighted=True,
-                 n_slices=None, trim=0.05, random_state=None):
+                 n_slices=None, trim=0.05, sample_rows=None, random_state=None):
         self.dim = dim
         self.dim_rule = dim_rule
         self.bandwidth = bandwidth
         self.density_weighted = density_weighted
         self.n_slices = n_slices
         self.trim = trim
+        self.sample_rows = sample_rows
         self.random_state = random_state
 
     def _eigen_decomposition(self, X, y, weights=None):

@@ -79,9 +79,14 @@ class GradientOuterProduct(SubspaceEstimator):
         current ``dim`` directions only, then re-estimates the gradients.
         Sharper when the response varies fast along the subspace; each
         iteration costs about one more pass.
+    sample_rows : int or None, default None
+        Dask input only: the fit uses a uniform random sample of at most this
+        many rows, loaded into memory (neighbours need rows at hand); None
+        means 100 000. Recorded in ``row_sample_``.
     random_state : int, RandomState instance or None, default None
-        Seeds the anchor subsample, and the resampling of the ``dim="auto"``
-        rule when the rule's own ``random_state`` is None.
+        Seeds the anchor subsample, the row sample of Dask input, and the
+        resampling of the ``dim="auto"`` rule when the rule's own
+        ``random_state`` is None.
 
     Attributes
     ----------
@@ -101,6 +106,9 @@ class GradientOuterProduct(SubspaceEstimator):
         Neighbourhood size used.
     anchor_indices_ : ndarray of int
         Training rows at which gradients were estimated.
+    row_sample_ : dict or None
+        For Dask input, the row sample fitted on: ``rows_total``,
+        ``rows_used`` and ``random_state``; None for in-memory input.
     n_features_in_ : int
     feature_names_in_ : ndarray of str
         Present when ``X`` had string column names.
@@ -165,6 +173,7 @@ class GradientOuterProduct(SubspaceEstimator):
         "bandwidth": [Interval(Real, 0, None, closed="neither"), None],
         "n_anchors": [Interval(Integral, 1, None, closed="left"), None],
         "refine": [Interval(Integral, 0, None, closed="left")],
+        "sample_rows": [Interval(Integral, 1, None, closed="left"), None],
         "random_state": ["random_state"],
     }
 
@@ -179,6 +188,7 @@ class GradientOuterProduct(SubspaceEstimator):
         bandwidth=None,
         n_anchors=None,
         refine=0,
+        sample_rows=None,
         random_state=None,
     ):
         self.dim = dim
@@ -187,6 +197,7 @@ class GradientOuterProduct(SubspaceEstimator):
         self.bandwidth = bandwidth
         self.n_anchors = n_anchors
         self.refine = refine
+        self.sample_rows = sample_rows
         self.random_state = random_state
 
     def _eigen_decomposition(self, X, y, weights=None):
