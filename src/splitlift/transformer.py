@@ -105,6 +105,7 @@ class DirectionLift(TransformerMixin, BaseEstimator):
     mean_, scale_ : ndarray of shape (n_features_in_,)
         Standardisation; zeros and ones when ``standardize=False``.
     n_samples_fit_ : int
+        Rows fitted on (with positive weight).
     lifted_extent_ : float
         Sum over the lift's directions of the training data's extent along
         them: the clock rate of a STIT tree's root cell (``1 / lifted_extent_``
@@ -229,7 +230,8 @@ class DirectionLift(TransformerMixin, BaseEstimator):
         else:
             self.lifted_extent_ = float(np.sum(np.ptp(standardised @ self.lift_.matrix.T,
                                                       axis=0)))
-            self.n_samples_fit_ = X.shape[0]
+            self.n_samples_fit_ = X.shape[0] if sample_weight is None else int(
+                np.count_nonzero(sample_weight))
             self.linearity_ = check_linearity(standardised, self.subspace_basis_)
         return self
 
