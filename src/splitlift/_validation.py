@@ -265,3 +265,41 @@ def _is_sequence(value) -> bool:
     except TypeError:
         return False
     return True
+
+
+def check_sample_weight(sample_weight, n_samples: int) -> np.ndarray | None:
+    """Return frequency weights as a float array of length ``n_samples`` (None stays None).
+
+    A scalar applies to every row. Weights count rows (an integer weight is
+    that many copies of the row), so they must be finite and non-negative,
+    and at least one must be positive.
+    """
+    if sample_weight is None:
+        return None
+    try:
+        weights = np.asarray(sample_weight, dtype=float)
+    except (TypeError, ValueError) as error:
+        raise ValueError(
+            f"sample_weight must be numeric; could not convert it to floats ({error})."
+        ) from None
+    if weights.ndim == 0:
+        weights = np.full(n_samples, float(weights))
+    if weights.ndim != 1 or weights.size != n_samples:
+        raise ValueError(
+            f"sample_weight has shape {weights.shape} but X has {n_samples} rows; "
+            "pass one weight per row (a 1-D array of that length)."
+        )
+    if not np.all(np.isfinite(weights)):
+        raise ValueError("sample_weight contains NaN or infinite values; pass finite weights.")
+    if np.any(weights < 0):
+        row = int(np.argmax(weights < 0))
+        raise ValueError(
+            f"sample_weight has negative entries (row {row}: {weights[row]:g}); weights count "
+            "rows and must be >= 0. Drop those rows or set their weight to 0."
+        )
+    if not np.any(weights > 0):
+        raise ValueError(
+            "every sample weight is zero, so no row would count; give the rows to fit a "
+            "positive weight."
+        )
+    return weights

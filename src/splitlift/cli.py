@@ -40,6 +40,8 @@ import threading
 import warnings
 from pathlib import Path
 
+from . import large_data
+
 EXIT_OK, EXIT_DATA_ERROR, EXIT_USAGE, EXIT_INTERNAL = 0, 1, 2, 3
 EXIT_INTERRUPTED, EXIT_TERMINATED = 130, 143
 
@@ -140,6 +142,13 @@ def _command(commands, name: str, summary: str, description: str, example: str):
     return command
 
 
+def _add_scheduler_option(command) -> None:
+    command.add_argument("--scheduler", metavar="threads|processes|ADDRESS",
+                         help="where Dask runs the work on folder or glob data: threads "
+                              "(default), processes, synchronous, or the address of a running "
+                              "cluster (tcp://host:8786)")
+
+
 def _build_parser() -> argparse.ArgumentParser:
     from . import __version__
 
@@ -175,7 +184,9 @@ def _build_parser() -> argparse.ArgumentParser:
                    "and writes it (with its report and plots, all or nothing).",
                    "splitlift fit data.csv --target strength --estimator GradientOuterProduct "
                    "--dim auto --out lift.npz --report report.txt --html report.html")
-    fit.add_argument("data", metavar="DATA", help="CSV, Parquet (with pyarrow) or JSON file")
+    fit.add_argument("data", metavar="DATA",
+                     help="CSV, Parquet (with pyarrow) or JSON file, or a folder or quoted glob "
+                          "pattern of Parquet files read lazily with Dask (larger than memory)")
     fit.add_argument("--target", required=True, metavar="COL", help="response column")
     _add_table_options(fit)
     fit.add_argument("--estimator", type=_estimator_name, default="SlicedInverse",
@@ -201,6 +212,7 @@ def _build_parser() -> argparse.ArgumentParser:
     fit.add_argument("--plot", metavar="DIR", help="also write diagnostic PNG plots here")
     fit.add_argument("--json", action="store_true",
                      help="print the report as JSON on stdout instead of text")
+    _add_scheduler_option(fit)
 
     transform = _command(commands, "transform", "apply a saved lift to data",
                          "Writes the lifted columns (named as in Python: subspace_<i>, "
@@ -213,7 +225,9 @@ def _build_parser() -> argparse.ArgumentParser:
                            help="columns to carry through unchanged, before the lifted ones "
                                 "(identifiers, the target)")
     transform.add_argument("--out", required=True, metavar="OUT",
-                           help="lifted table: .csv, .tsv, .parquet or .json")
+                           help="lifted table: .csv, .tsv, .parquet or .json, or a FOLDER (no "
+                                "suffix) for partitioned Parquet, one file per partition")
+    _add_scheduler_option(transform)
 
     score = _command(commands, "score", "score candidate direction matrices",
                      "Ranks lifts and matrices by off-subspace weight, coverage and the "
@@ -568,7 +582,9 @@ def _run_fit(arguments) -> int:
     if arguments.slices is not None and arguments.estimator not in SLICED_ESTIMATORS:
         raise UsageError(f"--slices applies to --estimator {', '.join(SLICED_ESTIMATORS)}, "
                          f"not {arguments.estimator}; drop --slices")
-    _check_data_suffix("DATA", arguments.data, arguments.sep)
+    dataset = large_data.is_dataset(arguments.data)
+    if not dataset:
+        _check_data_suffix("DATA", arguments.data, arguments.sep)
     _check_suffix("--out", arguments.out, LIFT_SUFFIXES, "a lift file")
     if arguments.plot and Path(arguments.plot).suffix.lower() in _IMAGE_SUFFIXES:
         raise UsageError(f"--plot {arguments.plot} looks like a file name, but fit writes several "
@@ -589,7 +605,10 @@ def _run_fit(arguments) -> int:
     # the files (exit 1), still before any work
     _remove_stale_temporaries(arguments.data, arguments.out, arguments.report, arguments.plot,
                               arguments.html)
-    _check_input_file("DATA", arguments.data)
+    if dataset:
+        large_data.dataset_files(arguments.data)
+    else:
+        _check_input_file("DATA", arguments.data)
     _check_output_place("--out", arguments.out)
     for option in ("report", "html"):
         if getattr(arguments, option):
@@ -601,9 +620,10 @@ def _run_fit(arguments) -> int:
     if arguments.plot:
         _check_plot_folder(arguments.plot)
 
-    X, y, lift = _fit_lift(arguments)
-    report = lift.report()
-    _write_fit_result(arguments, lift, report, X, y)
+    with large_data.scheduler(arguments.scheduler):
+        X, y, lift = _fit_lift(arguments)
+        report = lift.report()
+        _write_fit_result(arguments, lift, report, X, y)
     if arguments.json:
         print(_report_text(report, "report.json").decode("utf-8"))
         return EXIT_OK
@@ -626,8 +646,13 @@ def _fit_lift(arguments):
     from . import estimators
     from .transformer import DirectionLift
 
-    table = _read_data(arguments, arguments.data)
-    X, y, names = _features_and_target(arguments, table)
+    dataset = large_data.is_dataset(arguments.data)
+    if dataset:  # lazily, chunk by chunk; plots get a sample of the rows
+        X, y, names = large_data.lazy_features_and_target(
+            large_data.read_dataset(arguments.data), arguments.target,
+            _feature_list(arguments.features))
+    else:
+        X, y, names = _features_and_target(arguments, _read_data(arguments, arguments.data))
     if arguments.dim != "auto" and arguments.dim > len(names):
         raise ValueError(f"--dim {arguments.dim} is more than the {len(names)} feature columns; "
                          f"choose --dim {len(names)} or less, or --dim auto")
@@ -637,10 +662,13 @@ def _fit_lift(arguments):
         estimator.set_params(n_slices=arguments.slices)
     if "random_state" in settings:
         estimator.set_params(random_state=arguments.seed)
-    _check_rows_per_slice(y, estimator, arguments.estimator)
+    if not dataset:
+        _check_rows_per_slice(y, estimator, arguments.estimator)
     lift = DirectionLift(estimator, complement_weight=arguments.complement_weight,
                          keep_inputs=arguments.keep_inputs, random_state=arguments.seed)
-    lift.fit(pd.DataFrame(X, columns=names), y)
+    lift.fit(X if dataset else pd.DataFrame(X, columns=names), y)
+    if dataset:
+        X, y = large_data.sample_for_plots(X, y) if arguments.plot else (None, None)
     return X, y, lift
 
 
@@ -688,15 +716,32 @@ def _run_transform(arguments) -> int:
 
     _check_suffix("LIFT", arguments.lift, LIFT_SUFFIXES,
                   "the lift (written by splitlift fit; LIFT comes before DATA)")
-    _check_data_suffix("DATA", arguments.data, arguments.sep)
-    _check_table_output("--out", arguments.out)
+    dataset = large_data.is_dataset(arguments.data)
+    partitioned = large_data.is_partitioned_output(arguments.out)
+    if not dataset:
+        _check_data_suffix("DATA", arguments.data, arguments.sep)
+    if not partitioned:
+        _check_table_output("--out", arguments.out)
     _refuse_overwrites([("LIFT", arguments.lift), ("DATA", arguments.data)],
                        [("--out", arguments.out)])
     _remove_stale_temporaries(arguments.lift, arguments.data, arguments.out)
-    _check_input_file("DATA", arguments.data)
-    _check_output_place("--out", arguments.out)
+    if dataset:
+        large_data.dataset_files(arguments.data)
+    else:
+        _check_input_file("DATA", arguments.data)
+    if partitioned:
+        large_data.check_output_folder(arguments.out, arguments.data)
+    else:
+        _check_output_place("--out", arguments.out)
 
     lift = LiftMatrix.load(arguments.lift)
+    if dataset or partitioned:
+        with large_data.scheduler(arguments.scheduler):
+            source = (large_data.read_dataset(arguments.data) if dataset
+                      else _read_data(arguments, arguments.data))
+            rows, columns = large_data.transform_to(lift, source, arguments.out, partitioned)
+        print(f"{rows} rows x {columns} lifted columns written to {arguments.out}")
+        return EXIT_OK
     table = _read_data(arguments, arguments.data)
     if lift.feature_names is None:
         raise ValueError(

@@ -158,7 +158,7 @@ class SequentialChiSquare(BaseEstimator):
         self.alpha = alpha
         self.weighted = weighted
 
-    def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
+    def select(self, estimator, X, y, sample_weight=None) -> tuple[int, DimensionTest]:
         alpha = _check_alpha(self.alpha)
         tests = getattr(estimator, "_chi_square_tests", None)
         if tests is None:
@@ -167,7 +167,7 @@ class SequentialChiSquare(BaseEstimator):
                 "use 'permutation', 'ladle' or 'cv'."
             )
         rows, chosen = [], None
-        for k, (statistic, df, p_value) in enumerate(tests(X, y, self.weighted)):
+        for k, (statistic, df, p_value) in enumerate(tests(X, y, self.weighted, sample_weight)):
             rows.append({"k": k, "statistic": statistic, "df": df, "p_value": p_value})
             if p_value > alpha:
                 chosen = k
@@ -216,14 +216,14 @@ class PermutationTest(BaseEstimator):
         self.n_permutations = n_permutations
         self.random_state = random_state
 
-    def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
+    def select(self, estimator, X, y, sample_weight=None) -> tuple[int, DimensionTest]:
         alpha = _check_alpha(self.alpha)
         n_permutations = _check_draws(self.n_permutations, "n_permutations")
         generator = check_random_state(self.random_state)
-        Z = Whitening.fit(X).transform(X)
+        Z = Whitening.fit(X, sample_weight=sample_weight).transform(X)
         d = Z.shape[1]
         top = min(_largest_candidate(estimator, d), d - 1)
-        full = _fixed_dim(estimator, max(top, 1)).fit(Z, y)
+        full = _fixed_dim(estimator, max(top, 1)).fit(Z, y, sample_weight=sample_weight)
         rows, chosen = [], top + 1 if top < d else d
         bar = progress_bar((top + 1) * n_permutations, "permutation tests")
         for k in range(top + 1):
@@ -234,8 +234,10 @@ class PermutationTest(BaseEstimator):
             fixed, moving = Z @ inside @ inside.T, Z @ outside
             null = np.empty(n_permutations)
             for draw in range(n_permutations):
+                # weights stay with their rows of (fixed part, y); the rest is permuted
                 permuted = fixed + moving[generator.permutation(Z.shape[0])] @ outside.T
-                refit = _fixed_dim(estimator, max(top, 1)).fit(permuted, y)
+                refit = _fixed_dim(estimator, max(top, 1)).fit(permuted, y,
+                                                                sample_weight=sample_weight)
                 null[draw] = _tail_statistic(refit.eigenvalues_, k)
                 bar.update(1)
             p_value = float((1 + np.sum(null >= observed)) / (1 + n_permutations))
@@ -300,19 +302,23 @@ class LadleEstimator(BaseEstimator):
         self.resample = resample
         self.random_state = random_state
 
-    def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
+    def select(self, estimator, X, y, sample_weight=None) -> tuple[int, DimensionTest]:
         n_boot = _check_draws(self.n_boot, "n_boot")
         n, d = X.shape
         top = _largest_candidate(estimator, d, self.max_dim)
         generator = check_random_state(self.random_state)
         if uses_local_resampling(self.resample, estimator, n):
-            # the fitted estimator redraws its own local terms: no refit at all
+            # the fitted estimator redraws its own (weighted) local terms: no refit at all
             full, label = estimator, f"ladle ({n_boot} local resamples)"
             replicates = (estimator._resampled_directions(generator) for _ in range(n_boot))
         else:
-            full, label = _fixed_dim(estimator, top).fit(X, y), f"ladle ({n_boot} bootstrap fits)"
-            replicates = (_fixed_dim(estimator, top).fit(X[rows], y[rows]).directions_
-                          for rows in (generator.randint(0, n, n) for _ in range(n_boot)))
+            full = _fixed_dim(estimator, top).fit(X, y, sample_weight=sample_weight)
+            label = f"ladle ({n_boot} bootstrap fits)"
+            # weighted data: each drawn row keeps its weight
+            replicates = (_fixed_dim(estimator, top).fit(
+                X[rows], y[rows],
+                sample_weight=None if sample_weight is None else sample_weight[rows]).directions_
+                for rows in (generator.randint(0, n, n) for _ in range(n_boot)))
         full_bases = [np.linalg.qr(full.directions_[:, :k])[0] for k in range(1, top + 1)]
         variation = np.zeros(top + 1)
         with progress_bar(n_boot, "ladle resamples") as bar:

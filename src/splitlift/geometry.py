@@ -26,8 +26,36 @@ def orthonormal_complement(basis: np.ndarray) -> np.ndarray:
     """
     orthonormal = check_basis(basis)
     d, k = orthonormal.shape
-    full, _, _ = np.linalg.svd(orthonormal, full_matrices=True)
-    return full[:, k:d]
+    # a canonical basis, so that equal subspaces give equal complements bit for bit
+    # (up to rounding), whatever basis of them was passed
+    return canonical_basis(np.eye(d) - orthonormal @ orthonormal.T, d - k)
+
+
+def canonical_basis(projector: np.ndarray, rank: int) -> np.ndarray:
+    """A reproducible orthonormal basis (d, rank) of the range of an orthogonal projector.
+
+    Gram-Schmidt of the projector's columns, longest first (lengths compared
+    to 12 digits, ties by index), with positive diagonal: the result depends
+    only on the subspace, not on any basis of it, so two computations of one
+    subspace that differ by rounding give the same basis up to rounding.
+
+    Parameters
+    ----------
+    projector : ndarray of shape (d, d)
+    rank : int
+        Dimension of the range.
+    """
+    if rank == 0:
+        return np.zeros((projector.shape[0], 0))
+    order = np.argsort(-np.round(np.diag(projector), 12), kind="stable")
+    basis, triangular = np.linalg.qr(projector[:, order[:rank]])
+    diagonal = np.abs(np.diag(triangular))
+    if diagonal.min() <= 1e-8 * diagonal.max():  # leading columns dependent: pivot fully
+        from scipy.linalg import qr
+
+        basis, triangular, _ = qr(projector, pivoting=True)
+        basis, triangular = basis[:, :rank], triangular[:rank, :rank]
+    return basis * np.sign(np.diag(triangular))
 
 
 def random_rotation(dim: int, generator) -> np.ndarray:

@@ -243,7 +243,8 @@ class LiftMatrix:
         spare = total - self.n_directions
         share = self.weights * spare
         counts = np.floor(share).astype(int)
-        remainder_order = np.argsort(-(share - counts), kind="stable")
+        # remainders equal up to rounding (equal weights) go by index, reproducibly
+        remainder_order = np.argsort(-np.round(share - counts, 9), kind="stable")
         counts[remainder_order[: spare - counts.sum()]] += 1
         return np.repeat(self.directions, counts + 1, axis=0)
 

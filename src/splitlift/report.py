@@ -344,6 +344,13 @@ def _findings(report: LiftReport, lift, moment_method: bool) -> list[dict]:
     for warning in getattr(lift.estimator_, "fit_warnings_", []):
         add(f"The fit itself is doubtful: {warning.split(';')[0].split('. ')[0]}.",
             "a fit warning", warning)
+    sample = getattr(lift.estimator_, "row_sample_", None)
+    if sample is not None and sample["rows_used"] < sample["rows_total"]:
+        add(f"The subspace was estimated on a random sample of {sample['rows_used']} of the "
+            f"{sample['rows_total']} rows (Dask input: the gradient methods need their rows "
+            "in memory).", "rows_used < rows_total",
+            "Raise the estimator's sample_rows if memory allows, check the estimate's "
+            "stability on the sample, or use a moment method, which reads every row.")
     if report.reference_dim is not None and report.dim < report.reference_dim:
         add(f"A whole direction is missed: the estimate has dimension {report.dim} but the "
             f"reference has {report.reference_dim}; small angles to the estimate do not "

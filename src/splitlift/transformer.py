@@ -10,7 +10,18 @@ from sklearn.utils import check_random_state
 from sklearn.utils._param_validation import HasMethods, Interval, StrOptions
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted, validate_data
 
+from ._validation import check_sample_weight
+from .dask_support import (
+    LINEARITY_SAMPLE_ROWS,
+    is_dask_collection,
+    lifted_extent,
+    location_scale,
+    register_features,
+    sample_of,
+    transform_lazily,
+)
 from .estimators import SlicedInverse
+from .estimators._base import FLOAT_DTYPES
 from .lift import LiftMatrix
 from .linearity import check_linearity
 from .loadings import loadings_frame
@@ -95,6 +106,7 @@ class DirectionLift(TransformerMixin, BaseEstimator):
     mean_, scale_ : ndarray of shape (n_features_in_,)
         Standardisation; zeros and ones when ``standardize=False``.
     n_samples_fit_ : int
+        Rows fitted on (with positive weight).
     lifted_extent_ : float
         Sum over the lift's directions of the training data's extent along
         them: the clock rate of a STIT tree's root cell (``1 / lifted_extent_``
@@ -163,24 +175,36 @@ class DirectionLift(TransformerMixin, BaseEstimator):
         self.random_state = random_state
         self.keep_inputs = keep_inputs
 
-    def fit(self, X, y):
+    def fit(self, X, y, sample_weight=None):
         """Fit the estimator on (standardised) X and build the lift.
 
         Parameters
         ----------
-        X : array-like of shape (n_samples, n_features)
+        X : array-like of shape (n_samples, n_features), or a Dask array or DataFrame
+            Dask input is never loaded whole (see :mod:`splitlift.dask_support`).
         y : array-like of shape (n_samples,)
             Numeric response or class labels (as the estimator allows).
+        sample_weight : array-like of shape (n_samples,), optional
+            Frequency weights, used by the standardisation and passed to the
+            estimator (integer weights give the fit on repeated rows).
+            Requested through metadata routing with
+            ``set_fit_request(sample_weight=True)``.
 
         Returns
         -------
         self
         """
         self._validate_params()
-        X = validate_data(self, X, dtype=float)
-        standardised = self._fit_standardisation(X)
+        lazy = is_dask_collection(X)
+        if lazy:
+            standardised = self._fit_standardisation_lazily(X, sample_weight)
+        else:
+            X = validate_data(self, X, dtype=float)
+            sample_weight = check_sample_weight(sample_weight, X.shape[0])
+            standardised = self._fit_standardisation(X, sample_weight)
         estimator = clone(SlicedInverse() if self.estimator is None else self.estimator)
-        self.estimator_ = _seed_estimator(estimator, self.random_state).fit(standardised, y)
+        self.estimator_ = _seed_estimator(estimator, self.random_state).fit(
+            standardised, y, sample_weight=sample_weight)
         self.subspace_basis_ = self.estimator_.basis_
         names = getattr(self, "feature_names_in_", None)
         self.lift_ = LiftMatrix.from_subspace(
@@ -200,18 +224,36 @@ class DirectionLift(TransformerMixin, BaseEstimator):
         )
         self.output_matrix_ = self.lift_.output_matrix()
         # the STIT clock rate of the root cell: sets the scale of a suggested lifetime
-        self.lifted_extent_ = float(np.sum(np.ptp(standardised @ self.lift_.matrix.T, axis=0)))
-        self.n_samples_fit_ = X.shape[0]
-        self.linearity_ = check_linearity(standardised, self.subspace_basis_)
+        if lazy:  # one more pass for the extent; the diagnostics read a sample of the rows
+            self.lifted_extent_ = lifted_extent(standardised, self.lift_.matrix)
+            self.linearity_ = check_linearity(
+                np.asarray(sample_of(standardised, LINEARITY_SAMPLE_ROWS)), self.subspace_basis_)
+        else:
+            self.lifted_extent_ = float(np.sum(np.ptp(standardised @ self.lift_.matrix.T,
+                                                      axis=0)))
+            self.n_samples_fit_ = X.shape[0] if sample_weight is None else int(
+                np.count_nonzero(sample_weight))
+            self.linearity_ = check_linearity(standardised, self.subspace_basis_)
         return self
 
-    def _fit_standardisation(self, X: np.ndarray) -> np.ndarray:
+    def _fit_standardisation(self, X: np.ndarray, sample_weight=None) -> np.ndarray:
         d = X.shape[1]
         if not self.standardize:
             self.mean_, self.scale_ = np.zeros(d), np.ones(d)
             return X
-        self.mean_, scale = column_location_scale(X)
+        self.mean_, scale = column_location_scale(X, sample_weight)
         self.scale_ = np.where(scale > 0, scale, 1.0)
+        return _standardise(X, self.mean_, self.scale_)
+
+    def _fit_standardisation_lazily(self, X, sample_weight):
+        """Dask input: one pass for the column moments; the standardised data stay lazy."""
+        register_features(self, X, reset=True)
+        mean, scale, self.n_samples_fit_ = location_scale(X, sample_weight)
+        d = mean.size
+        if not self.standardize:
+            self.mean_, self.scale_ = np.zeros(d), np.ones(d)
+            return X
+        self.mean_, self.scale_ = mean, np.where(scale > 0, scale, 1.0)
         return _standardise(X, self.mean_, self.scale_)
 
     def transform(self, X) -> np.ndarray:
@@ -224,10 +266,11 @@ class DirectionLift(TransformerMixin, BaseEstimator):
         Returns
         -------
         ndarray of shape (n_samples, n_output)
+            float32 for float32 input, else float64. Dask input gives a lazy
+            Dask array, or a Dask DataFrame named by ``get_feature_names_out()``.
         """
         check_is_fitted(self, "lift_")
-        X = validate_data(self, X, dtype=float, reset=False)
-        return self.lift_.apply(X)  # one code path for every place a lift is applied
+        return _lifted(self, X)
 
     def reference_in_lift_coordinates(self, reference) -> np.ndarray:
         """Map a subspace given in input coordinates to the lift's coordinates.
@@ -383,10 +426,34 @@ class ApplyLift(TransformerMixin, BaseEstimator):
         return self
 
     def transform(self, X) -> np.ndarray:
-        """Lifted features of X."""
+        """Lifted features of X (float32 kept; lazy for Dask input, as DirectionLift)."""
         check_is_fitted(self, "lift_")
-        X = validate_data(self, X, dtype=float, reset=False)
-        return self.lift_.apply(X)
+        return _lifted(self, X)
+
+    def get_feature_names_out(self, input_features=None) -> np.ndarray:
+        """Output column names, as :meth:`LiftMatrix.output_feature_names` gives them.
+
+        Parameters
+        ----------
+        input_features : array-like of str, optional
+            Input names, used when the lift keeps its inputs.
+
+        Returns
+        -------
+        ndarray of str
+        """
+        check_is_fitted(self, "lift_")
+        names = None if input_features is None else list(input_features)
+        return np.asarray(self.lift_.output_feature_names(names), dtype=object)
+
+
+def _lifted(transformer, X):
+    """``lift_.apply`` (one code path for every place a lift is applied), keeping float32
+    and staying lazy for Dask input."""
+    if is_dask_collection(X):
+        return transform_lazily(transformer, X, transformer.lift_.apply)
+    X = validate_data(transformer, X, dtype=FLOAT_DTYPES, reset=False)
+    return transformer.lift_.apply(X).astype(X.dtype, copy=False)
 
 
 def _standardise(X: np.ndarray, mean: np.ndarray, scale: np.ndarray) -> np.ndarray:

@@ -16,6 +16,7 @@ from ._local import (
     chunk_size,
     gaussian_weights,
     local_linear_gradients,
+    neighbour_shares,
     neighbourhoods,
     response_columns,
 )
@@ -78,9 +79,14 @@ class GradientOuterProduct(SubspaceEstimator):
         current ``dim`` directions only, then re-estimates the gradients.
         Sharper when the response varies fast along the subspace; each
         iteration costs about one more pass.
+    sample_rows : int or None, default None
+        Dask input only: the fit uses a uniform random sample of at most this
+        many rows, loaded into memory (neighbours need rows at hand); None
+        means 100 000. Recorded in ``row_sample_``.
     random_state : int, RandomState instance or None, default None
-        Seeds the anchor subsample, and the resampling of the ``dim="auto"``
-        rule when the rule's own ``random_state`` is None.
+        Seeds the anchor subsample, the row sample of Dask input, and the
+        resampling of the ``dim="auto"`` rule when the rule's own
+        ``random_state`` is None.
 
     Attributes
     ----------
@@ -100,6 +106,9 @@ class GradientOuterProduct(SubspaceEstimator):
         Neighbourhood size used.
     anchor_indices_ : ndarray of int
         Training rows at which gradients were estimated.
+    row_sample_ : dict or None
+        For Dask input, the row sample fitted on: ``rows_total``,
+        ``rows_used`` and ``random_state``; None for in-memory input.
     n_features_in_ : int
     feature_names_in_ : ndarray of str
         Present when ``X`` had string column names.
@@ -164,6 +173,7 @@ class GradientOuterProduct(SubspaceEstimator):
         "bandwidth": [Interval(Real, 0, None, closed="neither"), None],
         "n_anchors": [Interval(Integral, 1, None, closed="left"), None],
         "refine": [Interval(Integral, 0, None, closed="left")],
+        "sample_rows": [Interval(Integral, 1, None, closed="left"), None],
         "random_state": ["random_state"],
     }
 
@@ -178,6 +188,7 @@ class GradientOuterProduct(SubspaceEstimator):
         bandwidth=None,
         n_anchors=None,
         refine=0,
+        sample_rows=None,
         random_state=None,
     ):
         self.dim = dim
@@ -186,9 +197,10 @@ class GradientOuterProduct(SubspaceEstimator):
         self.bandwidth = bandwidth
         self.n_anchors = n_anchors
         self.refine = refine
+        self.sample_rows = sample_rows
         self.random_state = random_state
 
-    def _eigen_decomposition(self, X, y):
+    def _eigen_decomposition(self, X, y, weights=None):
         n = X.shape[0]
         check_sample_count(n, 3)
         if self.refine and isinstance(self.dim, str):
@@ -196,23 +208,28 @@ class GradientOuterProduct(SubspaceEstimator):
                 "refine > 0 needs an integer dim, because refined neighbourhoods follow dim "
                 "directions; pass dim=k, or use dim='auto' with refine=0."
             )
-        standardisation = Standardisation.fit(X)
+        standardisation = Standardisation.fit(X, weights)
         Z = standardisation.transform(X)
         responses, _ = response_columns(y)
-        self.n_neighbors_ = self._neighbourhood_size(n, Z.shape[1])
-        self.anchor_indices_ = self._anchors(n)
+        # with frequency weights the sample holds sum(w) rows, as if repeated
+        size = n if weights is None else max(int(round(weights.sum())), 1)
+        self.n_neighbors_ = self._neighbourhood_size(size, Z.shape[1])
+        self.anchor_indices_ = self._anchors(n, size)
 
-        gradients = self._anchor_gradients(Z, Z, responses)
+        gradients = self._anchor_gradients(Z, Z, responses, weights)
+        # with weights each anchor's outer products count its weight
+        self._anchor_weights = None if weights is None else weights[self.anchor_indices_]
         for _ in range(self.refine):
-            values, vectors = _descending_eigh(_average_outer_product(gradients))
+            values, vectors = _descending_eigh(
+                _average_outer_product(gradients, self._anchor_weights))
             # index values V^T z, sphered within the subspace
             index = Z @ vectors[:, : self.dim]
-            sphered = Whitening.fit(index).transform(index)
-            gradients = self._anchor_gradients(sphered, Z, responses)
+            sphered = Whitening.fit(index, sample_weight=weights).transform(index)
+            gradients = self._anchor_gradients(sphered, Z, responses, weights)
 
         # kept for resampling rules, which reuse the local fits instead of refitting
         self._gradients, self._standardisation = gradients, standardisation
-        outer = _average_outer_product(gradients)
+        outer = _average_outer_product(gradients, self._anchor_weights)
         self.outer_product_ = standardisation.embed(standardisation.embed(outer).T).T
         return self._eigen_pairs(outer)
 
@@ -234,7 +251,8 @@ class GradientOuterProduct(SubspaceEstimator):
         average over anchors, not that of the local fits themselves.
         """
         picks = generator.randint(0, self._gradients.shape[0], self._gradients.shape[0])
-        return self._eigen_pairs(_average_outer_product(self._gradients[picks]))[1]
+        weights = None if self._anchor_weights is None else self._anchor_weights[picks]
+        return self._eigen_pairs(_average_outer_product(self._gradients[picks], weights))[1]
 
     def _neighbourhood_size(self, n: int, p: int) -> int:
         if self.n_neighbors is None:
@@ -246,30 +264,41 @@ class GradientOuterProduct(SubspaceEstimator):
             )
         return int(self.n_neighbors)
 
-    def _anchors(self, n: int) -> np.ndarray:
+    def _anchors(self, n: int, size: int | None = None) -> np.ndarray:
         count = min(DEFAULT_MAX_ANCHORS, n) if self.n_anchors is None else self.n_anchors
-        if count >= n:
+        if count >= (n if size is None else min(n, size)):
             return np.arange(n)
         rng = check_random_state(self.random_state)
-        return np.sort(rng.choice(n, size=count, replace=False))
+        return np.sort(rng.choice(n, size=min(count, n), replace=False))
 
-    def _anchor_gradients(self, metric_points, Z, responses) -> np.ndarray:
-        """Local linear gradients at the anchors, standardised coordinates, shape (m, q, p)."""
+    def _anchor_gradients(self, metric_points, Z, responses, weights=None) -> np.ndarray:
+        """Local linear gradients at the anchors, standardised coordinates, shape (m, q, p).
+
+        With frequency weights a neighbourhood holds ``n_neighbors`` units of
+        weight (the farthest row counted in part), as the repeated rows
+        would, and each neighbour's kernel weight is multiplied by its share.
+        """
         k = self.n_neighbors_
-        chunk = chunk_size(k, max(Z.shape[1], responses.shape[1]))
+        rows_needed = k if weights is None else min(Z.shape[0], k)
+        chunk = chunk_size(rows_needed, max(Z.shape[1], responses.shape[1]))
         blocks = []
         for rows, distances, indices in neighbourhoods(
-            metric_points, self.anchor_indices_, k, chunk
+            metric_points, self.anchor_indices_, rows_needed, chunk
         ):
-            weights = gaussian_weights(distances, self.bandwidth)
-            blocks.append(local_linear_gradients(Z, responses, rows, indices, weights))
+            shares = None if weights is None else neighbour_shares(weights[indices], k)
+            kernel = gaussian_weights(distances, self.bandwidth, shares)
+            local = kernel if shares is None else kernel * shares
+            blocks.append(local_linear_gradients(Z, responses, rows, indices, local))
         return np.concatenate(blocks)
 
 
-def _average_outer_product(gradients: np.ndarray) -> np.ndarray:
-    """``(1/m) Σ_i Σ_c b_ic b_ic^T`` over anchors i and response columns c."""
+def _average_outer_product(gradients: np.ndarray, anchor_weights=None) -> np.ndarray:
+    """``(1/m) Σ_i Σ_c b_ic b_ic^T`` over anchors i and response columns c (weighted: by w_i)."""
     flat = gradients.reshape(-1, gradients.shape[-1])
-    return flat.T @ flat / gradients.shape[0]
+    if anchor_weights is None:
+        return flat.T @ flat / gradients.shape[0]
+    weighted = flat * np.repeat(anchor_weights, gradients.shape[1])[:, None]
+    return weighted.T @ flat / anchor_weights.sum()
 
 
 def _descending_eigh(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

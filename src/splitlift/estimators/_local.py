@@ -62,9 +62,9 @@ class Standardisation:
     kept: np.ndarray
 
     @classmethod
-    def fit(cls, X: np.ndarray) -> Standardisation:
-        """Estimate column means and standard deviations of ``X``."""
-        mean, scale = column_location_scale(X)
+    def fit(cls, X: np.ndarray, sample_weight=None) -> Standardisation:
+        """Estimate column means and standard deviations of ``X`` (weighted when asked)."""
+        mean, scale = column_location_scale(X, sample_weight)
         kept = ~constant_columns(mean, scale)
         if not kept.any():
             raise ValueError(
@@ -159,20 +159,38 @@ def neighbourhoods(
         yield rows, distances, indices
 
 
-def gaussian_weights(distances: np.ndarray, bandwidth: float | None) -> np.ndarray:
+def gaussian_weights(distances: np.ndarray, bandwidth: float | None,
+                     shares: np.ndarray | None = None) -> np.ndarray:
     """Gaussian kernel weights ``exp(-r^2 / (2 h^2))`` of neighbour distances.
 
     With ``bandwidth=None`` each anchor uses its own nearest-neighbour
     bandwidth, the distance to its farthest neighbour (so weights lie in
     ``[exp(-1/2), 1]``); a degenerate neighbourhood of duplicates gets equal
-    weights.
+    weights. With ``shares`` (see :func:`neighbour_shares`) the farthest
+    neighbour is the farthest with a positive share.
     """
     if bandwidth is None:
-        h = distances[:, -1:]
+        if shares is None:
+            h = distances[:, -1:]
+        else:
+            farthest = distances.shape[1] - 1 - np.argmax(shares[:, ::-1] > 0, axis=1)
+            h = distances[np.arange(distances.shape[0]), farthest][:, None]
         h = np.where(h > 0, h, 1.0)
     else:
         h = bandwidth
     return np.exp(-0.5 * (distances / h) ** 2)
+
+
+def neighbour_shares(weights: np.ndarray, n_neighbors: int) -> np.ndarray:
+    """Weight of each neighbour (nearest first) within ``n_neighbors`` units of weight.
+
+    Rows count their frequency weight, so ``n_neighbors`` nearest units are
+    the ``n_neighbors`` nearest rows of the repeated sample: the row that
+    crosses the total is counted in part, rows beyond it not at all. When
+    the rows given hold fewer units, all of them count fully.
+    """
+    before = np.cumsum(weights, axis=1) - weights
+    return np.clip(n_neighbors - before, 0.0, weights)
 
 
 def local_linear_gradients(
