@@ -317,6 +317,7 @@ _DEPRECATIONS: list[str] = []
 
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``splitlift`` console script; returns the exit code."""
+    _DEPRECATIONS.clear()  # per run: main() may be called many times in one process
     parser = _build_parser()
     try:
         arguments = parser.parse_args(argv)
@@ -325,11 +326,9 @@ def main(argv: list[str] | None = None) -> int:
             EXIT_USAGE)
     command = arguments.command
     handler = globals()[f"_run_{command}"]
-    if arguments.quiet:
-        from . import _progress
+    from . import _progress
 
-        _progress.QUIET = True
-    _QUIET[0] = arguments.quiet
+    _progress.QUIET = _QUIET[0] = arguments.quiet
     for message in _DEPRECATIONS:
         _say(command, "warning", message)
     try:
