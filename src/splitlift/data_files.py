@@ -375,4 +375,7 @@ def read_matrix(path) -> np.ndarray:
     if not isinstance(matrix, np.ndarray) or matrix.dtype.kind not in "fiu":
         raise ValueError(f"{source} does not hold a matrix of real numbers; give a .npy array "
                          "or a .csv table of numbers.")
+    if source.suffix.lower() != ".npy" and not np.all(np.isfinite(matrix)):
+        raise ValueError(f"{source} has rows with different numbers of entries, or empty cells; "
+                         "give every row the same number of numbers.")
     return matrix

@@ -7,7 +7,6 @@ exception, so one broken candidate cannot stop a batch.
 
 from __future__ import annotations
 
-import csv
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -25,6 +24,7 @@ from ._validation import (
     check_response,
     check_sample_count,
 )
+from .data_files import read_matrix
 from .lift import LiftMatrix, divide_columns, lifted_features, zero_row_defect
 from .moments import _is_discrete
 from .selection import cross_validated_error, make_folds, seeded_clone
@@ -385,36 +385,9 @@ def _read_file(path: Path):
     try:
         if suffix == ".npz":
             return LiftMatrix.load(path)
-        if suffix == ".npy":
-            return np.asarray(np.load(path, allow_pickle=False), dtype=float)
-        return _read_csv(path)
+        return read_matrix(path)  # the one reader of matrix files, as for --reference
     except (OSError, ValueError, EOFError) as error:  # LiftFileError is a ValueError
         raise _InvalidCandidate(f"file {path} unreadable: {error}") from None
-
-
-def _read_csv(path: Path) -> np.ndarray:
-    with open(path, newline="", encoding="utf-8") as handle:
-        rows = [row for row in csv.reader(handle) if any(cell.strip() for cell in row)]
-    if rows and not all(_is_number(cell) for cell in rows[0]):
-        rows = rows[1:]  # a header row
-    if not rows:
-        raise ValueError("no numeric rows")
-    widths = sorted({len(row) for row in rows})
-    if len(widths) > 1:
-        raise ValueError(f"rows have different numbers of entries {widths}")
-    for number, row in enumerate(rows, 1):
-        bad = [cell for cell in row if not _is_number(cell)]
-        if bad:
-            raise ValueError(f"data row {number} holds a non-number {bad[0]!r}")
-    return np.array([[float(cell) for cell in row] for row in rows])
-
-
-def _is_number(cell: str) -> bool:
-    try:
-        float(cell)
-    except ValueError:
-        return False
-    return True
 
 
 def _valid_lift(candidate, n_features: int) -> LiftMatrix:
