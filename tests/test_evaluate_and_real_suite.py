@@ -35,7 +35,7 @@ def test_evaluate_prints_the_table_and_verdict_and_writes_csv(kiln_file, tmp_pat
     result = run("evaluate", str(path), "--target", "strength", "--forest", "et", "--cv", "3",
                  "--out", str(out))
     assert result.returncode == 0, result.stderr
-    assert "raw inputs" in result.stdout and "OPG dim 1 + inputs" in result.stdout
+    assert "raw inputs" in result.stdout and "ADE dim 1 + inputs" in result.stdout
     assert "(3-fold CV of ExtraTreesRegressor)" in result.stdout
     table = pd.read_csv(out)
     assert table["candidate"].iloc[0] == "raw inputs" and table["chosen"].sum() == 1
@@ -51,7 +51,7 @@ def test_evaluate_writes_json_and_a_plot(kiln_file, tmp_path, capsys):
                  "--out", str(out), "--plot", str(plot)]) == 0
     document = json.loads(out.read_text())
     assert document["verdict"] in capsys.readouterr().out and document["folds"] == 2
-    assert len(document["candidates"]) == 9
+    assert len(document["candidates"]) == 3  # the defaults: raw inputs, ADE alone and kept
     assert plot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
 
