@@ -4,13 +4,16 @@ from __future__ import annotations
 
 from collections.abc import Callable, Iterable
 
-from joblib import Parallel, delayed
+from sklearn.utils.parallel import Parallel, delayed
 from tqdm import tqdm
 
 
 def parallel_map(function: Callable, items: Iterable, total: int, label: str,
                  n_jobs=None, progress: bool = True) -> list:
     """``[function(item) for item in items]`` in parallel (joblib), in input order.
+
+    scikit-learn's wrappers of joblib carry its configuration (``set_config``)
+    into the workers, so forests fitted there behave as in the caller.
 
     A tqdm progress bar labelled ``label`` advances as results arrive, in any
     order. With ``progress=True`` it is drawn only when stderr is a terminal
