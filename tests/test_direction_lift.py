@@ -60,7 +60,11 @@ def test_pandas_feature_names_are_kept(problem):
     assert list(lift.feature_names_in_) == list(frame.columns)
     assert lift.lift_.feature_names == list(frame.columns)
     names = lift.get_feature_names_out()
-    assert len(names) == lift.lift_.n_directions and names[0] == "direction_0"
+    assert len(names) == lift.lift_.n_directions and names[0] == "subspace_0"
+    # directions inside the estimated subspace first, then its complement, marked by name
+    inside = sum(name.startswith("subspace_") for name in names)
+    assert inside + sum(name.startswith("complement_") for name in names) == len(names)
+    assert 0 < inside < len(names)
 
 
 def test_pipeline_and_grid_search_over_lift_and_estimator_parameters(problem):
@@ -125,8 +129,8 @@ def test_report_reads_and_serialises(problem):
     report = lift.report(reference=truth)
     text = str(report)
     for needle in ("SlicedInverse", "n = 1500 rows, d = 6 features", "standardised inputs",
-                   "eigenvalues", "rank 6 of 6", "leakage", "restricted sing. value",
-                   "angles to estimate"):
+                   "eigenvalues", "rank 6 of 6", "off-subspace weight", "coverage sigma_min",
+                   "largest angle (deg)"):
         assert needle in text
     as_dict = json.loads(json.dumps(report.to_dict()))
     assert as_dict["comparisons"][0]["leakage"] == pytest.approx(0.1)

@@ -38,13 +38,27 @@ def correlated_gaussian(rng, n, d, rho=0.5):
     return X, covariance
 
 
+def expected_failures(estimator) -> dict:
+    """Checks that cannot hold for a method, with the reason (scikit-learn's mechanism)."""
+    if isinstance(estimator, GradientOuterProduct):
+        # The check fits 15 rows of 30 columns: every local linear fit is then a
+        # degenerate system held solvable by a 1e-9 ridge, which amplifies the
+        # rounding difference between a weight and repeated rows to about 3e-7,
+        # beyond the check's 1e-7. Integer weights equal repetition to 1e-9 on
+        # data with enough rows per neighbourhood: tests/test_sample_weights.py.
+        return {"check_sample_weight_equivalence_on_dense_data":
+                "degenerate local fits (d > n) amplify rounding beyond the check's 1e-7"}
+    return {}
+
+
 @parametrize_with_checks(
     [
         GradientOuterProduct(),
         GradientOuterProduct(refine=1, n_anchors=8, random_state=0),
         AverageDerivative(),
         AverageDerivative(density_weighted=False, n_slices=3),
-    ]
+    ],
+    expected_failed_checks=expected_failures,
 )
 def test_scikit_learn_conventions(estimator, check):
     # reference: scikit-learn's estimator checks

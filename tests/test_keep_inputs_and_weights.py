@@ -31,7 +31,8 @@ def test_kept_inputs_come_first_then_the_lifted_directions(frame):
     np.testing.assert_allclose(output[:, 5:], alone.transform(X), atol=1e-12)
     names = list(kept.get_feature_names_out())
     assert names[:5] == list(X.columns)
-    assert names[5:] == [f"direction_{i}" for i in range(alone.lift_.n_directions)]
+    assert names[5:] == alone.lift_.output_feature_names()
+    assert names[5] == "subspace_0" and names[-1].startswith("complement_")
     assert list(alone.get_feature_names_out()) == names[5:]
     # the lift itself, its leakage and weights, do not change by keeping the inputs
     np.testing.assert_array_equal(kept.lift_.matrix, alone.lift_.matrix)
@@ -41,7 +42,7 @@ def test_kept_inputs_with_the_repeated_form(frame):
     X, y = frame
     kept = sl.DirectionLift(weight_form="repeat", n_columns=30, keep_inputs=True).fit(X, y)
     assert kept.transform(X).shape == (600, 35)
-    assert list(kept.get_feature_names_out())[4:6] == ["moisture", "direction_0"]
+    assert list(kept.get_feature_names_out())[4:6] == ["moisture", "subspace_0"]
 
 
 def test_saved_lift_keeps_its_inputs_in_production(frame, tmp_path):

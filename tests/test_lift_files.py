@@ -95,3 +95,54 @@ def test_existing_file_survives_a_failed_write(lift, tmp_path):
 def test_missing_folder_is_a_clear_error(lift, tmp_path):
     with pytest.raises(FileNotFoundError, match="does not exist"):
         lift.save(tmp_path / "nowhere" / "lift.npz")
+
+
+# ------------------------------------------------ metadata of the wrong JSON type
+def _rewrite_lift_file(path, change):
+    """Tamper with a saved lift: ``change(metadata, arrays)`` edits it in place."""
+    import json
+
+    with np.load(path) as archive:
+        contents = {name: archive[name] for name in archive.files}
+    metadata = json.loads(contents["metadata"].tobytes().decode())
+    change(metadata, contents)
+    contents["metadata"] = np.frombuffer(json.dumps(metadata).encode(), dtype=np.uint8)
+    np.savez(path, **contents)
+
+
+@pytest.mark.parametrize("change, words", [
+    (lambda m: m.update(feature_names="abcde"), "'feature_names' should be null or a list"),
+    (lambda m: m.update(feature_names={"a": 1}), "'feature_names' should be null or a list"),
+    (lambda m: m.update(feature_names=[1, 2, 3, 4, 5]), "'feature_names' should be null"),
+    (lambda m: m.update(feature_names=list("abcda")), "should be null or a list of distinct"),
+    (lambda m: m.update(info=[1, 2]), "'info' should be an object"),
+    (lambda m: m.update(info="note"), "'info' should be an object"),
+    (lambda m: m.update(info=None), "'info' should be an object"),
+    (lambda m: m["info"].update(report_text=5), "'report_text' should be a string"),
+    (lambda m: m["info"].update(complement_weight="0.1"), "'complement_weight' should be a num"),
+    (lambda m: m["info"].update(n_columns="7"), "'n_columns' should be null or a positive"),
+    (lambda m: m["info"].update(weight_form=["repeat"]), "'weight_form' should be a string"),
+    (lambda m: m.update(n_features="5"), "'n_features' should be a positive integer"),
+    (lambda m: m.update(n_directions=True), "'n_directions' should be a positive integer"),
+    (lambda m: m.pop("n_features"), "'n_features' is missing"),
+])
+def test_metadata_of_the_wrong_type_is_a_lift_file_error(lift, tmp_path, change, words):
+    path = tmp_path / "lift.npz"
+    lift.save(path)
+    _rewrite_lift_file(path, lambda metadata, arrays: change(metadata))
+    with pytest.raises(sl.LiftFileError, match=words):
+        sl.LiftMatrix.load(path)
+
+
+@pytest.mark.parametrize("bad", [np.full((5, 5), "0.1"), np.ones((5, 5)) * (1 + 1j)])
+def test_arrays_that_are_not_real_numbers_are_refused(lift, tmp_path, bad):
+    path = tmp_path / "lift.npz"
+    lift.save(path)
+    _rewrite_lift_file(path, lambda metadata, arrays: arrays.update(matrix=bad))
+    with pytest.raises(sl.LiftFileError, match="not real numbers"):
+        sl.LiftMatrix.load(path)
+
+
+def test_a_folder_given_as_lift_file_says_so(tmp_path):
+    with pytest.raises(sl.LiftFileError, match="is a directory"):
+        sl.LiftMatrix.load(tmp_path)

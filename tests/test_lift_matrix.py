@@ -115,3 +115,43 @@ def test_repeated_form_counts_follow_weights():
 def test_bad_lift_input_is_a_clear_error(call, message):
     with pytest.raises(ValueError, match=message):
         call()
+
+
+@pytest.mark.parametrize("magnitude", [1e300, 1e-200, 1e-300])
+def test_lift_matrix_at_extreme_magnitudes_is_the_same_lift(magnitude):
+    # normalisation to Σ‖a_i‖ = 1 (DESIGN) removes any positive factor
+    A = np.array([[3.0, 4.0], [0.0, 5.0]])
+    np.testing.assert_allclose(sl.LiftMatrix(A * magnitude).matrix, A / 10, rtol=1e-15)
+
+
+@pytest.mark.parametrize("weight", [1e-11, 1e-12, 1e-100, 1e-300])
+def test_tiny_complement_weights_give_a_full_rank_lift(weight):
+    # the documented range is (0, 1): the complement rows keep their (tiny) weight and the
+    # lift stays of rank d; its leakage is the complement weight (DESIGN)
+    basis = np.linalg.qr(np.random.default_rng(5).standard_normal((4, 2)))[0]
+    lift = sl.LiftMatrix.from_subspace(basis, complement_weight=weight)
+    assert lift.rank() == 4
+    np.testing.assert_allclose(np.sort(lift.weights)[:2], weight / 2, rtol=1e-12)
+    assert lift.leakage(basis) == pytest.approx(weight, abs=1e-15)
+
+
+def test_extreme_weight_power_has_its_limiting_weights_instead_of_overflowing():
+    # weight of u = c1 e1 + c2 e2 is ∝ c1² 10^p + c2² 1^p; at p = 1e5, 10^p overflows, but
+    # relative to the largest the limit is exact: ∝ c1² = cos²(πj/8) for the eight lines
+    # of the half circle, whose cos² sum to 4 (closed form), sharing 1 - 0.1 = 0.9
+    lift = sl.LiftMatrix.from_subspace(np.eye(3)[:, :2], complement_weight=0.1,
+                                       eigenvalues=[10.0, 1.0], weight_power=1e5)
+    expected = 0.9 * np.cos(np.pi * np.arange(8) / 8) ** 2 / 4
+    np.testing.assert_allclose(lift.weights[:8], expected, rtol=1e-12)
+    assert np.all(np.isfinite(lift.matrix)) and lift.rank() == 3
+
+
+def test_apply_near_the_float_limit_is_exact_where_representable():
+    # reference value in exact arithmetic: rows (1, 1)/(2√2) and (1, -1)/(2√2) applied to
+    # (1.5e308, 1.5e308) - (-1.5e308, -1.5e308), divided by scale 4: (3e308/4)(2/(2√2)) and 0
+    lift = sl.LiftMatrix([[1.0, 1.0], [1.0, -1.0]], input_mean=[-1.5e308, -1.5e308],
+                         input_scale=[4.0, 4.0])
+    lifted = lift.apply([[1.5e308, 1.5e308]])
+    # tolerance: a few eps of Σ|terms| = 0.75e308 / √2, the dot-product rounding bound
+    np.testing.assert_allclose(lifted, [[0.75e308 / np.sqrt(2), 0.0]], rtol=1e-15,
+                               atol=1e-15 * 0.75e308 / np.sqrt(2))

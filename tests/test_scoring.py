@@ -256,3 +256,23 @@ def test_missing_pandas_is_a_clear_import_error(monkeypatch):
     monkeypatch.setitem(sys.modules, "pandas", None)
     with pytest.raises(ImportError, match="pip install pandas"):
         score_candidates([np.eye(2)], reference=np.eye(2)[:, :1])
+
+
+def test_candidates_at_extreme_magnitudes_score_like_the_plain_matrix():
+    # normalisation to Σ‖a_i‖ = 1 (DESIGN) makes every positive multiple the same lift;
+    # against span(e1) the leakage of diag(3, 1) is 1/4 (closed form: weights 3/4, 1/4)
+    A = np.diag([3.0, 1.0])
+    table = score_candidates({"plain": A, "huge": A * 1e300, "tiny": A * 1e-300},
+                             reference=[1.0, 0.0], progress=False)
+    assert table["valid"].all() and (table["rank"] == 2).all()
+    np.testing.assert_allclose(table["leakage"], 0.25, rtol=1e-15)
+    np.testing.assert_allclose(table["restricted_singular_value"], 0.75, rtol=1e-15)
+
+
+def test_standardisation_at_extreme_scales_is_folded_without_overflow():
+    # A diag(1/s) with s = (1e-300, 1): rows (1e300, 0) and (0, 1), weights ∝ 1e300 : 1,
+    # so against span(e1) the leakage is 1e-300 / (1 + 1e-300) = 1e-300 (closed form)
+    lift = sl.LiftMatrix(np.eye(2), input_scale=[1e-300, 1.0])
+    table = score_candidates([lift], reference=[1.0, 0.0], progress=False)
+    assert bool(table["valid"].iloc[0]) and table["rank"].iloc[0] == 2
+    assert table["leakage"].iloc[0] == pytest.approx(1e-300, rel=1e-12)

@@ -225,7 +225,7 @@ def test_pandas_names_and_kept_inputs_carry_through(rng):
     search = small_search(keep_inputs=True).fit(frame, y)
     assert search.best_params_["keep_inputs"] is True
     names = list(search.get_feature_names_out())
-    assert names[:4] == ["temp", "flow", "speed", "load"] and names[4] == "direction_0"
+    assert names[:4] == ["temp", "flow", "speed", "load"] and names[4] == "subspace_0"
     assert search.best_lift_.lift_.feature_names == ["temp", "flow", "speed", "load"]
     assert search.transform(frame).shape == (300, len(names))
 

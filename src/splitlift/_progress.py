@@ -1,32 +1,45 @@
-"""Parallel map with a progress bar, shared by the batch entry points."""
+"""Parallel map with a progress bar (tqdm), shared by the batch entry points."""
 
 from __future__ import annotations
 
 from collections.abc import Callable, Iterable
 
 from sklearn.utils.parallel import Parallel, delayed
-from tqdm import tqdm
+
+#: Set by the command line's ``--quiet``: no bar anywhere in this process.
+QUIET = False
+
+
+def progress_bar(total: int, label: str, enabled: bool = True):
+    """A tqdm bar with elapsed time and ETA, in terminals and notebooks.
+
+    ``enabled=False`` (or :data:`QUIET`) hides it; otherwise tqdm shows it
+    only where it can be drawn (a terminal or a notebook), so logs and pipes
+    stay clean.
+    """
+    from tqdm.auto import tqdm
+
+    shown = enabled and not QUIET
+    return tqdm(total=total, desc=label, disable=None if shown else True, leave=False,
+                dynamic_ncols=True)
 
 
 def parallel_map(function: Callable, items: Iterable, total: int, label: str,
                  n_jobs=None, progress: bool = True) -> list:
     """``[function(item) for item in items]`` in parallel (joblib), in input order.
 
-    scikit-learn's wrappers of joblib carry its configuration (``set_config``)
-    into the workers, so forests fitted there behave as in the caller.
-
-    A tqdm progress bar labelled ``label`` advances as results arrive, in any
-    order. With ``progress=True`` it is drawn only when stderr is a terminal
-    (tqdm's ``disable=None``), so logs and pipes stay clean; ``False`` hides it.
-    The results never depend on ``n_jobs``.
+    The bar advances as results arrive, in any order; the results never
+    depend on ``n_jobs``. scikit-learn's wrappers of joblib carry its
+    configuration (``set_config``) into the workers, so forests fitted there
+    behave as in the caller.
     """
     jobs = Parallel(n_jobs=n_jobs, return_as="generator_unordered")(
         delayed(_numbered)(function, index, item) for index, item in enumerate(items))
     results: dict[int, object] = {}
-    with tqdm(total=total, desc=label, disable=None if progress else True, leave=False) as bar:
+    with progress_bar(total, label, progress) as bar:
         for index, result in jobs:
             results[index] = result
-            bar.update()
+            bar.update(1)
     return [results[index] for index in range(len(results))]
 
 

@@ -10,6 +10,7 @@ lives in the model-selection layer, :mod:`splitlift.selection`.
 
 from __future__ import annotations
 
+import importlib
 from dataclasses import asdict, dataclass, field
 from numbers import Integral, Real
 
@@ -19,6 +20,8 @@ from sklearn.base import BaseEstimator, clone
 from sklearn.utils import check_random_state
 
 from . import geometry
+from ._progress import progress_bar
+from ._tables import html_table, json_ready, text_table
 from .moments import Whitening
 
 
@@ -41,22 +44,49 @@ class DimensionTest:
     rows: list[dict] = field(default_factory=list)
 
     def to_dict(self) -> dict:
-        return asdict(self)
+        """Plain dictionary; strict JSON (NaN and infinities become None)."""
+        return json_ready(asdict(self))
+
+    def table_rows(self) -> list[dict]:
+        """One row per candidate dimension, with the question asked and the decision."""
+        tested = any(row.get("p_value") is not None for row in self.rows)
+        out = []
+        for row in self.rows:
+            k = row["k"]
+            if tested:
+                question = ("y depends on no direction of X" if k == 0 else
+                            f"y depends on at most {k} direction{'s' if k > 1 else ''}")
+                decision = (f"kept: dimension {k}" if k == self.chosen
+                            else "rejected" if k < self.chosen else "")
+            else:
+                question = f"{k} direction{'s' if k != 1 else ''}"
+                decision = f"lowest: dimension {k}" if k == self.chosen else ""
+            out.append({**row, "question": question, "decision": decision,
+                        "evidence": row.get("df", row.get("null_draws"))})
+        return out
+
+    def _columns(self) -> list[tuple[str, str, str]]:
+        tested = any(row.get("p_value") is not None for row in self.rows)
+        if tested:
+            draws = "null_draws" in (self.rows[0] if self.rows else {})
+            return [("question", "hypothesis", "s"), ("statistic", "statistic", ".4g"),
+                    ("evidence", "null draws" if draws else "df", "d"),
+                    ("p_value", "p-value", ".3g"), ("decision", "decision", "s")]
+        columns = [("question", "candidate", "s"), ("criterion", "criterion", ".4g")]
+        if any(row.get("std") is not None for row in self.rows):
+            columns.append(("std", "spread", ".3g"))
+        return columns + [("decision", "decision", "s")]
 
     def __str__(self) -> str:
-        columns = [c for c in ("k", "statistic", "df", "null_draws", "p_value", "criterion",
-                               "std") if any(row.get(c) is not None for row in self.rows)]
-        lines = [f"dimension rule: {self.rule} -> dim = {self.chosen}",
-                 "  " + "".join(f"{c:>12}" for c in columns)]
-        for row in self.rows:
-            cells = []
-            for column in columns:
-                value = row.get(column)
-                cells.append(f"{'-':>12}" if value is None else
-                             f"{value:>12d}" if isinstance(value, int) else f"{value:>12.4g}")
-            mark = "  <" if row["k"] == self.chosen else ""
-            lines.append("  " + "".join(cells) + mark)
-        return "\n".join(lines)
+        heading = f"dimension {self.chosen}, chosen by {self.rule}"
+        return heading + "\n" + text_table(self.table_rows(), self._columns())
+
+    def __repr__(self) -> str:
+        return f"<DimensionTest: {self.rule}; dimension {self.chosen}, {len(self.rows)} rows>"
+
+    def _repr_html_(self) -> str:
+        return html_table(self.table_rows(), self._columns(),
+                          caption=f"dimension {self.chosen}, chosen by {self.rule}")
 
 
 def _check_alpha(alpha) -> float:
@@ -128,7 +158,7 @@ class SequentialChiSquare(BaseEstimator):
         self.alpha = alpha
         self.weighted = weighted
 
-    def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
+    def select(self, estimator, X, y, sample_weight=None) -> tuple[int, DimensionTest]:
         alpha = _check_alpha(self.alpha)
         tests = getattr(estimator, "_chi_square_tests", None)
         if tests is None:
@@ -137,7 +167,7 @@ class SequentialChiSquare(BaseEstimator):
                 "use 'permutation', 'ladle' or 'cv'."
             )
         rows, chosen = [], None
-        for k, (statistic, df, p_value) in enumerate(tests(X, y, self.weighted)):
+        for k, (statistic, df, p_value) in enumerate(tests(X, y, self.weighted, sample_weight)):
             rows.append({"k": k, "statistic": statistic, "df": df, "p_value": p_value})
             if p_value > alpha:
                 chosen = k
@@ -186,15 +216,16 @@ class PermutationTest(BaseEstimator):
         self.n_permutations = n_permutations
         self.random_state = random_state
 
-    def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
+    def select(self, estimator, X, y, sample_weight=None) -> tuple[int, DimensionTest]:
         alpha = _check_alpha(self.alpha)
         n_permutations = _check_draws(self.n_permutations, "n_permutations")
         generator = check_random_state(self.random_state)
-        Z = Whitening.fit(X).transform(X)
+        Z = Whitening.fit(X, sample_weight=sample_weight).transform(X)
         d = Z.shape[1]
         top = min(_largest_candidate(estimator, d), d - 1)
-        full = _fixed_dim(estimator, max(top, 1)).fit(Z, y)
+        full = _fixed_dim(estimator, max(top, 1)).fit(Z, y, sample_weight=sample_weight)
         rows, chosen = [], top + 1 if top < d else d
+        bar = progress_bar((top + 1) * n_permutations, "permutation tests")
         for k in range(top + 1):
             observed = _tail_statistic(full.eigenvalues_, k)
             inside = full.directions_[:, :k]
@@ -203,15 +234,19 @@ class PermutationTest(BaseEstimator):
             fixed, moving = Z @ inside @ inside.T, Z @ outside
             null = np.empty(n_permutations)
             for draw in range(n_permutations):
+                # weights stay with their rows of (fixed part, y); the rest is permuted
                 permuted = fixed + moving[generator.permutation(Z.shape[0])] @ outside.T
-                refit = _fixed_dim(estimator, max(top, 1)).fit(permuted, y)
+                refit = _fixed_dim(estimator, max(top, 1)).fit(permuted, y,
+                                                                sample_weight=sample_weight)
                 null[draw] = _tail_statistic(refit.eigenvalues_, k)
+                bar.update(1)
             p_value = float((1 + np.sum(null >= observed)) / (1 + n_permutations))
             rows.append({"k": k, "statistic": observed, "null_draws": n_permutations,
                          "p_value": p_value})
             if p_value > alpha:
                 chosen = k
                 break
+        bar.close()
         chosen = min(chosen, d)
         return chosen, DimensionTest(f"permutation test, alpha = {alpha:g}", chosen, rows)
 
@@ -240,6 +275,17 @@ class LadleEstimator(BaseEstimator):
         eigenvalues carry the units of y or of the gradients, so the raw
         criterion would depend on them. ``"auto"``: raw for SIR and SAVE,
         normalised otherwise.
+    resample : {"auto", "refit", "local"}, default "auto"
+        ``"refit"``: the published bootstrap, one full fit per replicate.
+        ``"local"``: for estimators built from one term per anchor or row
+        (OPG, ADE), redraw those terms from the fitted estimator instead of
+        refitting, so the rule costs about one fit in all. It reflects the
+        variation of the average over anchors or rows but not that of each
+        local fit, so it is an approximation; in the benchmark it chose the
+        same dimension as the published ladle on the test functions of
+        ``splitlift bench``. ``"auto"``: local above
+        :data:`LOCAL_RESAMPLING_MIN_ROWS` rows where the estimator offers it,
+        the published refit otherwise.
     random_state : int, RandomState or None, default None
 
     References
@@ -248,27 +294,40 @@ class LadleEstimator(BaseEstimator):
     eigenvectors for order determination. Biometrika 103, 875-887.
     """
 
-    def __init__(self, n_boot=50, max_dim=None, normalize="auto", random_state=None):
+    def __init__(self, n_boot=50, max_dim=None, normalize="auto", resample="auto",
+                 random_state=None):
         self.n_boot = n_boot
         self.max_dim = max_dim
         self.normalize = normalize
+        self.resample = resample
         self.random_state = random_state
 
-    def select(self, estimator, X, y) -> tuple[int, DimensionTest]:
+    def select(self, estimator, X, y, sample_weight=None) -> tuple[int, DimensionTest]:
         n_boot = _check_draws(self.n_boot, "n_boot")
         n, d = X.shape
         top = _largest_candidate(estimator, d, self.max_dim)
         generator = check_random_state(self.random_state)
-        full = _fixed_dim(estimator, top).fit(X, y)
+        if uses_local_resampling(self.resample, estimator, n):
+            # the fitted estimator redraws its own (weighted) local terms: no refit at all
+            full, label = estimator, f"ladle ({n_boot} local resamples)"
+            replicates = (estimator._resampled_directions(generator) for _ in range(n_boot))
+        else:
+            full = _fixed_dim(estimator, top).fit(X, y, sample_weight=sample_weight)
+            label = f"ladle ({n_boot} bootstrap fits)"
+            # weighted data: each drawn row keeps its weight
+            replicates = (_fixed_dim(estimator, top).fit(
+                X[rows], y[rows],
+                sample_weight=None if sample_weight is None else sample_weight[rows]).directions_
+                for rows in (generator.randint(0, n, n) for _ in range(n_boot)))
         full_bases = [np.linalg.qr(full.directions_[:, :k])[0] for k in range(1, top + 1)]
         variation = np.zeros(top + 1)
-        for _ in range(n_boot):
-            rows = generator.randint(0, n, n)
-            boot = _fixed_dim(estimator, top).fit(X[rows], y[rows])
-            for k in range(1, top + 1):
-                boot_basis = np.linalg.qr(boot.directions_[:, :k])[0]
-                cosines = np.cos(geometry.principal_angles(full_bases[k - 1], boot_basis))
-                variation[k] += (1.0 - np.prod(cosines)) / n_boot
+        with progress_bar(n_boot, "ladle resamples") as bar:
+            for directions in replicates:
+                for k in range(1, top + 1):
+                    boot_basis = np.linalg.qr(directions[:, :k])[0]
+                    cosines = np.cos(geometry.principal_angles(full_bases[k - 1], boot_basis))
+                    variation[k] += (1.0 - np.prod(cosines)) / n_boot
+                bar.update(1)
         eigen = np.abs(full.eigenvalues_)
         normalize = self.normalize
         if normalize == "auto":
@@ -281,13 +340,33 @@ class LadleEstimator(BaseEstimator):
         criterion = phi + f
         chosen = int(np.argmin(criterion))
         rows_out = [{"k": k, "criterion": float(criterion[k])} for k in range(top + 1)]
-        return chosen, DimensionTest(f"ladle ({n_boot} bootstrap fits)", chosen, rows_out)
+        return chosen, DimensionTest(label, chosen, rows_out)
+
+
+#: Rows above which ``resample="auto"`` redraws local terms instead of refitting.
+LOCAL_RESAMPLING_MIN_ROWS = 2000
+
+
+def uses_local_resampling(resample: str, estimator, n_samples: int) -> bool:
+    """Whether a resampling rule should redraw the estimator's local terms (see the ladle)."""
+    if resample not in ("auto", "refit", "local"):
+        raise ValueError(f"resample must be 'auto', 'refit' or 'local', got {resample!r}.")
+    offered = hasattr(estimator, "_resampled_directions")
+    if resample == "local" and not offered:
+        raise ValueError(
+            f"resample='local' needs an estimator built from local terms "
+            f"(GradientOuterProduct, AverageDerivative), not {type(estimator).__name__}; "
+            "use resample='refit'."
+        )
+    return offered and (resample == "local" or
+                        (resample == "auto" and n_samples > LOCAL_RESAMPLING_MIN_ROWS))
 
 
 #: Rule names and their factories. ``"cv"`` fits forests on lifted data, so it
 #: lives in the model-selection layer above the estimators and the transformer
 #: (:class:`splitlift.selection.CrossValidatedDimension`), which registers it
-#: here; this module never imports upwards.
+#: here when it loads; this module never imports it at module level, and loads
+#: it by name only when a fit asks for ``"cv"`` before anything else did.
 RULES = {
     "chi2": SequentialChiSquare,
     "weighted_chi2": lambda: SequentialChiSquare(weighted=True),
@@ -316,12 +395,19 @@ def resolve_rule(rule, estimator):
                 f"choose one of {sorted(available)}."
             )
         factory = RULES[rule]
-        if factory is None:  # only when splitlift.selection was never imported
-            raise ImportError(
-                f"dim_rule={rule!r} is provided by splitlift.selection; import splitlift "
-                "(or splitlift.selection) before fitting."
-            )
-        return factory()
-    if not hasattr(rule, "select"):
+        if factory is None:  # registered by the model-selection layer when it loads
+            importlib.import_module("splitlift.selection")
+            factory = RULES[rule]
+        rule = factory()
+    elif not hasattr(rule, "select"):
         raise ValueError(f"dim_rule must be a rule name or an object with select(), got {rule!r}.")
-    return rule
+    return _seeded(rule, getattr(estimator, "random_state", None))
+
+
+def _seeded(rule, random_state):
+    """A copy of ``rule`` seeded by the estimator when the rule has no seed of its own."""
+    if random_state is None or not hasattr(rule, "get_params"):
+        return rule
+    if "random_state" not in rule.get_params(deep=False) or rule.random_state is not None:
+        return rule
+    return clone(rule).set_params(random_state=random_state)

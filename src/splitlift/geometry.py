@@ -6,6 +6,7 @@ Small pure functions with their input checks at the top and no state.
 from __future__ import annotations
 
 import numpy as np
+from scipy import linalg, stats
 
 from ._validation import check_basis, check_finite_matrix
 
@@ -25,15 +26,42 @@ def orthonormal_complement(basis: np.ndarray) -> np.ndarray:
     """
     orthonormal = check_basis(basis)
     d, k = orthonormal.shape
-    full, _, _ = np.linalg.svd(orthonormal, full_matrices=True)
-    return full[:, k:d]
+    # a canonical basis, so that equal subspaces give equal complements bit for bit
+    # (up to rounding), whatever basis of them was passed
+    return canonical_basis(np.eye(d) - orthonormal @ orthonormal.T, d - k)
+
+
+def canonical_basis(projector: np.ndarray, rank: int) -> np.ndarray:
+    """A reproducible orthonormal basis (d, rank) of the range of an orthogonal projector.
+
+    Gram-Schmidt of the projector's columns, longest first (lengths compared
+    to 12 digits, ties by index), with positive diagonal: the result depends
+    only on the subspace, not on any basis of it, so two computations of one
+    subspace that differ by rounding give the same basis up to rounding.
+
+    Parameters
+    ----------
+    projector : ndarray of shape (d, d)
+    rank : int
+        Dimension of the range.
+    """
+    if rank == 0:
+        return np.zeros((projector.shape[0], 0))
+    order = np.argsort(-np.round(np.diag(projector), 12), kind="stable")
+    basis, triangular = np.linalg.qr(projector[:, order[:rank]])
+    diagonal = np.abs(np.diag(triangular))
+    if diagonal.min() <= 1e-8 * diagonal.max():  # leading columns dependent: pivot fully
+        from scipy.linalg import qr
+
+        basis, triangular, _ = qr(projector, pivoting=True)
+        basis, triangular = basis[:, :rank], triangular[:rank, :rank]
+    return basis * np.sign(np.diag(triangular))
 
 
 def random_rotation(dim: int, generator) -> np.ndarray:
-    """A Haar-distributed orthogonal (dim, dim) matrix (QR of a Gaussian, signs fixed).
+    """A Haar-distributed orthogonal (dim, dim) matrix, from :data:`scipy.stats.ortho_group`.
 
-    ``generator`` is a numpy ``Generator`` or ``RandomState``; fixing the signs
-    of R's diagonal makes the distribution exactly Haar (Mezzadri 2007).
+    ``generator`` is a numpy ``Generator`` or ``RandomState``.
 
     Examples
     --------
@@ -42,8 +70,9 @@ def random_rotation(dim: int, generator) -> np.ndarray:
     >>> bool(np.allclose(Q @ Q.T, np.eye(3)))
     True
     """
-    q, r = np.linalg.qr(generator.standard_normal((dim, dim)))
-    return q * np.sign(np.diag(r))
+    if dim == 1:  # ortho_group needs dim >= 2; the Haar measure on O(1) is a random sign
+        return np.array([[1.0 if generator.random() < 0.5 else -1.0]])
+    return stats.ortho_group.rvs(dim, random_state=generator)
 
 
 def principal_angles(U, V) -> np.ndarray:
@@ -62,10 +91,10 @@ def principal_angles(U, V) -> np.ndarray:
 
     Notes
     -----
-    With orthonormal bases ``Q_U, Q_V`` the cosines are the singular values of
-    ``Q_U^T Q_V``. Small angles are recovered from the sines, the singular
-    values of ``Q_V - Q_U Q_U^T Q_V``, which keeps full accuracy near zero
-    (Björck & Golub 1973; Knyazev & Argentati 2002).
+    The inputs are checked and orthonormalised here (safely at any
+    magnitude, refusing complex or rank-deficient sets); the angles come from
+    :func:`scipy.linalg.subspace_angles`, which uses cosines for large angles
+    and sines for small ones (Björck & Golub 1973; Knyazev & Argentati 2002).
 
     References
     ----------
@@ -81,25 +110,108 @@ def principal_angles(U, V) -> np.ndarray:
     """
     left = check_basis(U, "U")
     right = check_basis(V, "V", n_features=left.shape[0])
-    if left.shape[1] < right.shape[1]:
-        left, right = right, left
-    cross = left.T @ right
-    cosines = np.clip(np.linalg.svd(cross, compute_uv=False), 0.0, 1.0)
-    residual = right - left @ cross
-    sines = np.clip(np.linalg.svd(residual, compute_uv=False), 0.0, 1.0)
-    # cosines come largest first and sines largest first: align both to
-    # ascending angles, take each angle from whichever is better conditioned
-    ascending = np.where(cosines**2 > 0.5, np.arcsin(sines[::-1]), np.arccos(cosines))
-    return ascending[::-1]
+    return linalg.subspace_angles(left, right)
 
 
-def normalise_rows(matrix) -> np.ndarray:
-    """Scale a direction matrix so that its row norms sum to one."""
-    array = check_finite_matrix(matrix, "matrix")
-    total = np.linalg.norm(array, axis=1).sum()
-    if total == 0:
-        raise ValueError("the direction matrix is all zeros; pass at least one non-zero row.")
-    return array / total
+#: Relative singular-value tolerance below which unit directions count as dependent.
+RANK_TOLERANCE = 1e-10
+
+
+def row_norms(matrix: np.ndarray) -> np.ndarray:
+    """Euclidean norms of the rows, safe from overflow and underflow.
+
+    Each row is divided by its largest absolute entry before squaring
+    (the scaling behind ``hypot``), so rows with entries near 1e300 or
+    1e-300 get their true norm instead of ``inf`` or 0.
+
+    Parameters
+    ----------
+    matrix : ndarray of shape (m, d), finite
+
+    Returns
+    -------
+    ndarray of shape (m,)
+        ``inf`` only where the true norm lies beyond the float range.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> row_norms(np.array([[3e300, 4e300], [3e-300, 4e-300]])).tolist()
+    [5e+300, 5e-300]
+    """
+    largest = np.max(np.abs(matrix), axis=1)
+    safe = np.where(largest > 0, largest, 1.0)
+    with np.errstate(over="ignore"):
+        return largest * np.linalg.norm(matrix / safe[:, None], axis=1)
+
+
+def normalise_rows(matrix, name: str = "matrix") -> np.ndarray:
+    """Scale a direction matrix so that its row norms sum to one.
+
+    The matrix is first divided by its largest absolute entry, so the result
+    does not depend on the overall magnitude (entries near 1e300 or 1e-300
+    give the same rows as entries near 1). Rows below about 1e-308 of the
+    largest entry cannot be represented after scaling and become zero.
+
+    Parameters
+    ----------
+    matrix : array-like of shape (m, d)
+    name : str, default "matrix"
+        How error messages call the matrix.
+
+    Returns
+    -------
+    ndarray of shape (m, d)
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> normalise_rows(np.array([[3e300, 4e300], [0.0, 5e300]])).tolist()
+    [[0.3, 0.4], [0.0, 0.5]]
+    """
+    array = check_finite_matrix(matrix, name)
+    largest = float(np.max(np.abs(array)))
+    if largest == 0:
+        raise ValueError(f"the {name} is all zeros; pass at least one non-zero row.")
+    rescaled = array / largest
+    return rescaled / row_norms(rescaled).sum()
+
+
+def direction_rank(matrix, tolerance: float = RANK_TOLERANCE) -> int:
+    """Numerical rank of the unit directions ``a_i / ‖a_i‖`` of the non-zero rows.
+
+    Rank is a property of the directions, not of their weights: a direction
+    with weight 1e-12 spans its line as well as one with weight 1. Judging
+    singular values of the unit rows, relative to the largest, keeps tiny
+    but deliberate weights (a small ``complement_weight``) from being
+    mistaken for dependence, at any overall magnitude.
+
+    Parameters
+    ----------
+    matrix : ndarray of shape (m, d), finite
+    tolerance : float, default 1e-10
+        Relative singular-value tolerance.
+
+    Returns
+    -------
+    int
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> direction_rank(np.array([[1.0, 0.0], [0.0, 1e-200]]))
+    2
+    >>> direction_rank(np.array([[1.0, 0.0], [2.0, 0.0]]))
+    1
+    """
+    norms = row_norms(matrix)
+    present = (norms > 0) & np.isfinite(norms)
+    if not np.any(present):
+        return 0
+    scaled = matrix[present] / np.max(np.abs(matrix[present]), axis=1, keepdims=True)
+    units = scaled / np.linalg.norm(scaled, axis=1, keepdims=True)
+    singular = np.linalg.svd(units, compute_uv=False)
+    return int(np.sum(singular > tolerance * singular[0]))
 
 
 def leakage(matrix, reference_basis) -> float:
@@ -110,7 +222,8 @@ def leakage(matrix, reference_basis) -> float:
     matrix : array-like of shape (m, d)
         Rows are directions. An un-normalised matrix is first scaled so that
         its row norms sum to one (the lift normalisation), which makes the
-        leakage scale-free and puts it in ``[0, 1]``.
+        leakage scale-free and puts it in ``[0, 1]`` at any magnitude of
+        the entries.
     reference_basis : array-like of shape (d, s)
         Columns spanning the subspace ``S``; with no columns (the zero
         subspace) the leakage is 1.
@@ -129,8 +242,16 @@ def leakage(matrix, reference_basis) -> float:
     rows = normalise_rows(matrix)
     basis = check_basis(reference_basis, "reference_basis", n_features=rows.shape[1],
                         allow_empty=True)
-    outside = rows - (rows @ basis) @ basis.T
-    return float(np.linalg.norm(outside, axis=1).sum())
+    if basis.shape[1] == 0:
+        return 1.0
+    # a convex combination of per-direction leakages in [0, 1]: scale-free and
+    # inside [0, 1] whatever the magnitude of the rows
+    weights = row_norms(rows)
+    present = weights > 0
+    units = rows[present] / weights[present, None]
+    outside = np.minimum(row_norms(units - (units @ basis) @ basis.T), 1.0)
+    value = np.dot(weights[present], outside) / weights.sum()
+    return float(np.clip(value, 0.0, 1.0))
 
 
 def restricted_singular_value(matrix, reference_basis) -> float:

@@ -9,11 +9,17 @@ from scipy.stats import norm, qmc
 from sklearn.utils import check_random_state
 
 from . import geometry
-from ._validation import check_basis, check_finite_matrix, check_fraction
+from ._validation import (
+    as_real_array,
+    check_basis,
+    check_feature_names,
+    check_finite_matrix,
+    check_finite_real,
+    check_fraction,
+    check_metadata,
+    check_n_features,
+)
 from .persistence import read_lift_file, write_lift_file
-
-# Relative singular-value tolerance for the full-rank requirement.
-_RANK_TOLERANCE = 1e-10
 
 
 class LiftMatrix:
@@ -27,10 +33,12 @@ class LiftMatrix:
     Parameters
     ----------
     matrix : array-like of shape (m, d)
-        Directions as rows; rescaled to unit total row norm. Zero rows are
-        refused.
+        Real directions as rows; rescaled to unit total row norm (safely at
+        any magnitude, entries near 1e300 or 1e-300 included). Zero rows,
+        complex entries and unit directions of rank below d are refused.
     feature_names : sequence of str, optional
-        Names of the d input columns the lift acts on.
+        Names of the d input columns the lift acts on, one per column and
+        unique (a bare string is refused, not split into letters).
     subspace_basis : array-like of shape (d, s), optional
         The subspace the lift was built around, kept for diagnostics.
     metadata : dict, optional
@@ -62,15 +70,7 @@ class LiftMatrix:
     def __init__(self, matrix, *, feature_names=None, subspace_basis=None, metadata=None,
                  input_mean=None, input_scale=None):
         rows = check_finite_matrix(matrix, "lift matrix")
-        norms = np.linalg.norm(rows, axis=1)
-        if np.any(norms == 0):
-            raise ValueError(
-                f"lift matrix row {int(np.argmin(norms))} is zero; every row must be a direction."
-            )
-        total = norms.sum()
-        # an already normalised matrix is kept bit for bit (saved lifts round-trip exactly)
-        normalised = abs(total - 1.0) <= 8 * np.finfo(float).eps * rows.shape[0]
-        self._matrix = rows.copy() if normalised else rows / total
+        self._matrix = _normalised(rows)
         self._matrix.setflags(write=False)
         rank = self.rank()
         if rank < self.n_features:
@@ -79,18 +79,18 @@ class LiftMatrix:
                 "would be unbounded; add directions spanning the rest of the space "
                 "(for instance LiftMatrix.from_subspace with complement_weight > 0)."
             )
-        if feature_names is not None:
-            feature_names = [str(name) for name in feature_names]
-            if len(feature_names) != self.n_features:
-                raise ValueError(
-                    f"{len(feature_names)} feature names given for {self.n_features} columns."
-                )
-        self.feature_names = feature_names
+        self.feature_names = check_feature_names(feature_names, self.n_features)
         self.subspace_basis = (
             None if subspace_basis is None else check_basis(subspace_basis, "subspace_basis",
                                                             n_features=self.n_features)
         )
-        self.metadata = dict(metadata or {})
+        self.metadata = check_metadata(metadata)
+        if self.metadata.get("weight_form", "scale") not in ("scale", "repeat"):
+            raise ValueError(
+                f"metadata weight_form must be 'scale' or 'repeat', got "
+                f"{self.metadata['weight_form']!r}."
+            )
+        self.output_matrix()  # a repeated form with a bad n_columns fails here, not at apply
         self.input_mean = _optional_vector(input_mean, "input_mean", self.n_features)
         self.input_scale = _optional_vector(input_scale, "input_scale", self.n_features)
         if self.input_scale is not None and np.any(self.input_scale <= 0):
@@ -111,7 +111,7 @@ class LiftMatrix:
 
     @property
     def weights(self) -> np.ndarray:
-        return np.linalg.norm(self._matrix, axis=1)
+        return geometry.row_norms(self._matrix)
 
     @property
     def directions(self) -> np.ndarray:
@@ -135,14 +135,16 @@ class LiftMatrix:
     def output_feature_names(self, input_names=None) -> list[str]:
         """Names of the columns :meth:`apply` returns, as ``DirectionLift`` and the CLI give them.
 
-        Lifted columns are ``direction_0``, ``direction_1``, ...; a lift that
-        keeps its inputs (metadata ``keep_inputs``) returns the input columns
-        first, under their names (``input_names``, else ``feature_names``,
-        else ``x0``, ``x1``, ...).
+        A lifted column is ``subspace_<i>`` when its direction lies in the
+        estimated subspace and ``complement_<i>`` when it lies in its
+        orthogonal complement (each counted from 0); a lift built without a
+        subspace names them ``direction_<i>``. A lift that keeps its inputs
+        (metadata ``keep_inputs``) returns the input columns first, under
+        their names (``input_names``, else ``feature_names``, else ``x0``, ...).
         """
         keep = bool(self.metadata.get("keep_inputs"))
-        lifted = self.output_matrix().shape[0] - (self.n_features if keep else 0)
-        directions = [f"direction_{index}" for index in range(lifted)]
+        rows = self.output_matrix()[self.n_features if keep else 0:]
+        directions = _direction_names(rows, self.subspace_basis)
         if not keep:
             return directions
         names = input_names if input_names is not None else self.feature_names
@@ -160,18 +162,16 @@ class LiftMatrix:
         Returns
         -------
         ndarray of shape (n_samples, n_directions)
+
+        Raises
+        ------
+        ValueError
+            When a lifted value lies beyond the float range (about 1.8e308);
+            intermediate overflow alone is avoided (see :func:`lifted_features`).
         """
         data = check_finite_matrix(X, "X")
-        if data.shape[1] != self.n_features:
-            raise ValueError(
-                f"X has {data.shape[1]} columns but the lift was built for {self.n_features} "
-                "features; pass the same columns, in the same order, as at fit time."
-            )
-        if self.input_mean is not None:
-            data = data - self.input_mean
-        if self.input_scale is not None:
-            data = data / self.input_scale
-        return data @ self.output_matrix().T
+        check_n_features(data.shape[1], self.n_features)
+        return lifted_features(data, self.output_matrix(), self.input_mean, self.input_scale)
 
     def reference_in_lift_coordinates(self, reference) -> np.ndarray:
         """Map a subspace given in input coordinates to the coordinates the matrix acts on.
@@ -201,9 +201,12 @@ class LiftMatrix:
                           input_mean=self.input_mean, input_scale=self.input_scale)
 
     def rank(self) -> int:
-        """Numerical rank of the matrix (relative singular-value tolerance 1e-10)."""
-        singular = np.linalg.svd(self._matrix, compute_uv=False)
-        return int(np.sum(singular > _RANK_TOLERANCE * singular[0]))
+        """Numerical rank of the unit directions (relative singular-value tolerance 1e-10).
+
+        Judged on the directions, not on the weighted rows, so a direction
+        with a tiny weight still counts (see :func:`geometry.direction_rank`).
+        """
+        return geometry.direction_rank(self._matrix)
 
     def leakage(self, reference_basis) -> float:
         """Leakage ``Σ_i ‖P_{S⊥} a_i‖`` with respect to ``span(reference_basis)``."""
@@ -240,7 +243,8 @@ class LiftMatrix:
         spare = total - self.n_directions
         share = self.weights * spare
         counts = np.floor(share).astype(int)
-        remainder_order = np.argsort(-(share - counts), kind="stable")
+        # remainders equal up to rounding (equal weights) go by index, reproducibly
+        remainder_order = np.argsort(-np.round(share - counts, 9), kind="stable")
         counts[remainder_order[: spare - counts.sum()]] += 1
         return np.repeat(self.directions, counts + 1, axis=0)
 
@@ -290,7 +294,9 @@ class LiftMatrix:
         complement_weight : float in (0, 1), default 0.05
             Total weight shared equally by an orthonormal basis of the
             orthogonal complement; it equals the lift's leakage with respect
-            to S. Ignored when ``s = d`` (there is no complement).
+            to S. Ignored when ``s = d`` (there is no complement). Any value
+            works down to ``(d - s) * 2.2e-308`` (each complement direction
+            needs a weight of at least the smallest normal float).
         n_in_subspace : int, optional
             Number of directions inside S. Default: 1 when ``s = 1``, else
             ``4 s``. Must be at least s.
@@ -299,7 +305,10 @@ class LiftMatrix:
             absolute value). With ``weight_power = p`` a unit direction
             ``U c`` inside S gets weight ``∝ Σ_k c_k^2 |λ_k|^p``.
         weight_power : float, default 0
-            0 gives equal weights inside S.
+            0 gives equal weights inside S. Any finite value; the powers are
+            computed relative to the largest, so a large ``|weight_power|``
+            cannot overflow (a value so extreme that some weights underflow
+            to zero is refused, with the largest usable value).
         random_state : int, RandomState or None
             None gives the deterministic spread; otherwise the spread is
             turned by a random rotation within S (different lifts for an
@@ -326,8 +335,16 @@ class LiftMatrix:
             return cls.even_spread(np.shape(basis)[0], feature_names=feature_names,
                                    metadata=metadata, input_mean=input_mean,
                                    input_scale=input_scale)
+        weight_power = check_finite_real(weight_power, "weight_power")
         orthonormal = check_basis(basis, "basis")
         d, s = orthonormal.shape
+        if s < d and complement_weight / (d - s) < np.finfo(float).tiny:
+            raise ValueError(
+                f"complement_weight={complement_weight!r} is too small to store: shared by "
+                f"{d - s} complement directions it gives each a weight below the smallest "
+                "normal float (about 2.2e-308), so those directions would be lost. Use "
+                f"complement_weight >= {(d - s) * np.finfo(float).tiny:.3g}."
+            )
         count = (1 if s == 1 else 4 * s) if n_in_subspace is None else n_in_subspace
         if isinstance(count, bool) or not isinstance(count, Integral) or count < s:
             raise ValueError(
@@ -393,10 +410,130 @@ class LiftMatrix:
                 input_scale=arrays.get("input_scale"),
             )
         except ValueError as error:
-            raise LiftFileError(f"{path}: invalid lift ({error})") from None
+            raise LiftFileError(
+                f"{path}: invalid lift ({error.args[0].rstrip('.')}); the file is damaged or "
+                "was edited by hand: save the lift again."
+            ) from None
 
     def __repr__(self) -> str:
         return f"LiftMatrix(n_directions={self.n_directions}, n_features={self.n_features})"
+
+
+def lifted_features(X: np.ndarray, matrix: np.ndarray, input_mean=None,
+                    input_scale=None) -> np.ndarray:
+    """``((X - input_mean) / input_scale) @ matrix.T`` without spurious overflow.
+
+    The direct formula is tried first (so ordinary data give exactly what it
+    gives). Rows where it overflows are recomputed with exact power-of-two
+    scalings: each row of ``X`` and the mean by ``2^-k_i``, the columns of
+    ``matrix / input_scale`` by ``2^-g``, and the product scaled back by
+    ``2^(k_i + g)``. Only a lifted value that truly lies beyond the float
+    range remains, and it is refused.
+
+    Parameters
+    ----------
+    X : ndarray of shape (n_samples, d), finite
+    matrix : ndarray of shape (m, d), finite
+    input_mean, input_scale : ndarray of shape (d,), optional
+        Standardisation applied first (``input_scale`` positive).
+
+    Returns
+    -------
+    ndarray of shape (n_samples, m), finite
+
+    Raises
+    ------
+    ValueError
+        When some lifted value exceeds the float range (about 1.8e308).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> X = np.full((1, 3), 1.5e308)  # the direct product overflows at 0.6 x + 0.6 x
+    >>> lifted_features(X, np.array([[0.6, 0.6, -0.5]])).tolist()
+    [[1.05e+308]]
+    """
+    with np.errstate(over="ignore", invalid="ignore"):
+        data = X if input_mean is None else X - input_mean
+        data = data if input_scale is None else data / input_scale
+        lifted = data @ matrix.T
+    overflowed = np.flatnonzero(~np.all(np.isfinite(lifted), axis=1))
+    if overflowed.size:
+        lifted[overflowed] = _lifted_rows_rescaled(X[overflowed], matrix, input_mean,
+                                                   input_scale)
+        beyond = overflowed[~np.all(np.isfinite(lifted[overflowed]), axis=1)]
+        if beyond.size:
+            raise ValueError(
+                f"the lifted features of {beyond.size} row(s) of X (first: row "
+                f"{int(beyond[0])}) exceed the float range (about ±1.8e308), so they cannot "
+                "be represented; the inputs are too large for this lift. Express the input "
+                "columns in larger units (divide them by a constant) and rebuild the lift on "
+                "the rescaled data."
+            )
+    return lifted
+
+
+def _lifted_rows_rescaled(rows, matrix, input_mean, input_scale) -> np.ndarray:
+    d = rows.shape[1]
+    mean = np.zeros(d) if input_mean is None else input_mean
+    scale = np.ones(d) if input_scale is None else input_scale
+    # 2^k_i bounds row i and the mean, so the centred row stays within [-2, 2]
+    bound = np.maximum(np.max(np.abs(rows), axis=1), np.max(np.abs(mean)))
+    row_exponent = np.frexp(bound)[1][:, None]
+    centred = np.ldexp(rows, -row_exponent) - np.ldexp(mean[None, :], -row_exponent)
+    columns, shift = divide_columns(matrix, scale)
+    with np.errstate(over="ignore"):
+        return np.ldexp(centred @ columns.T, row_exponent + shift)
+
+
+def divide_columns(matrix: np.ndarray, scale: np.ndarray) -> tuple[np.ndarray, int]:
+    """``matrix / scale`` as ``(columns, g)`` with ``matrix / scale = columns * 2**g``.
+
+    ``scale`` is positive; every ``|columns|`` entry is at most twice the
+    matching ``|matrix|`` entry, so the division cannot overflow whatever
+    the scales (the power of two carries the magnitude exactly).
+    """
+    mantissa, exponent = np.frexp(scale)
+    shift = int(np.max(-exponent))
+    return np.ldexp(matrix / mantissa, -exponent - shift), shift
+
+
+def _normalised(rows: np.ndarray) -> np.ndarray:
+    """``rows / Σ‖a_i‖`` computed safely; zero or unrepresentable rows are refused."""
+    norms = geometry.row_norms(rows)
+    total = norms.sum()
+    if abs(total - 1.0) <= 8 * np.finfo(float).eps * rows.shape[0]:
+        normalised = rows.copy()  # kept bit for bit: saved lifts round-trip exactly
+    else:
+        normalised = geometry.normalise_rows(rows, "lift matrix") if total > 0 else rows
+    defect = zero_row_defect(norms, geometry.row_norms(normalised))
+    if defect:
+        raise ValueError(f"lift matrix {defect}; every row must be a direction.")
+    return normalised
+
+
+def zero_row_defect(norms: np.ndarray, normalised_norms: np.ndarray) -> str | None:
+    """Describe zero rows of a direction matrix, or None when every row counts.
+
+    A row is zero when its norm is, and negligible when it is non-zero but
+    vanishes once the matrix is scaled to ``Σ_i ‖a_i‖ = 1`` (its weight is
+    below the smallest float, about 1e-308 of the total).
+    """
+    zero = np.flatnonzero(norms == 0)
+    if zero.size:
+        return f"{_rows_named(zero)} zero"
+    lost = np.flatnonzero(normalised_norms == 0)
+    if lost.size:
+        return (f"{_rows_named(lost)} negligible next to the others (weight below 1e-308 of "
+                "the total, beyond the float range); drop or rescale them")
+    return None
+
+
+def _rows_named(indices: np.ndarray) -> str:
+    if indices.size == 1:
+        return f"row {int(indices[0])} is"
+    shown = ", ".join(str(int(index)) for index in indices[:5])
+    return f"rows {shown}{', ...' if indices.size > 5 else ''} are"
 
 
 def _optional_vector(value, name: str, length: int):
@@ -441,16 +578,46 @@ def _repel_lines(points: np.ndarray, n_steps: int = 200, power: int = 8) -> np.n
 def _eigenvalue_weights(coefficients, eigenvalues, weight_power, dim) -> np.ndarray:
     if eigenvalues is None or weight_power == 0:
         return np.ones(coefficients.shape[0])
-    values = np.abs(np.asarray(eigenvalues, dtype=float).ravel())
+    values = np.abs(as_real_array(eigenvalues, "eigenvalues").ravel())
     if values.size < dim or not np.all(np.isfinite(values[:dim])):
         raise ValueError(
             f"eigenvalues must hold at least {dim} finite values (one per basis column)."
         )
-    scaled = values[:dim] ** float(weight_power)
-    weights = (coefficients**2) @ scaled
-    if not np.all(weights > 0):
+    values = values[:dim]
+    if np.any(values == 0):
         raise ValueError(
-            "eigenvalue weights vanish for some direction (a zero eigenvalue with "
-            "weight_power > 0); use weight_power=0 or a smaller subspace."
+            f"eigenvalue weights vanish or blow up for some direction (a zero eigenvalue "
+            f"with weight_power={weight_power:g}); use weight_power=0 or a smaller subspace."
+        )
+    # |λ_k|^p relative to the largest, in logarithms: no |p| can overflow
+    logs = weight_power * np.log(values)
+    weights = (coefficients**2) @ np.exp(logs - logs.max())
+    # below this relative weight the rows of a lift lose precision in the subnormal range
+    smallest = np.finfo(float).tiny / np.finfo(float).eps
+    if not np.all(weights >= smallest):
+        ratio = values.min() / values.max()
+        limit = np.log(smallest) / np.log(ratio)
+        raise ValueError(
+            f"weight_power={weight_power:g} is too extreme for these eigenvalues: "
+            f"(smallest / largest) ** |weight_power| = {ratio:.3g} ** {abs(weight_power):g} "
+            "underflows, so some directions would get zero weight. Use "
+            f"|weight_power| <= {np.floor(limit * 10) / 10:g}."
         )
     return weights
+
+
+def _direction_names(rows: np.ndarray, subspace_basis) -> list[str]:
+    """``subspace_<i>`` / ``complement_<i>`` by where each row points, else ``direction_<i>``."""
+    if subspace_basis is None or subspace_basis.shape[1] == 0:
+        return [f"direction_{index}" for index in range(rows.shape[0])]
+    norms = geometry.row_norms(rows)
+    unit = rows / np.where(norms > 0, norms, 1.0)[:, None]
+    # mostly inside S (cos^2 > 1/2); rows built by from_subspace are exactly in S or S-perp
+    inside = np.linalg.norm(unit @ subspace_basis, axis=1) ** 2 > 0.5
+    counts = {"subspace": 0, "complement": 0}
+    names = []
+    for flag in inside:
+        kind = "subspace" if flag else "complement"
+        names.append(f"{kind}_{counts[kind]}")
+        counts[kind] += 1
+    return names

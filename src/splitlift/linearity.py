@@ -44,6 +44,7 @@ class LinearityCheck:
     mardia_kurtosis: float
     kurtosis_z: float
     doubtful: bool
+    kurtosis_expected: float | None = None
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -93,12 +94,14 @@ def check_linearity(X, basis=None, random_state=0) -> LinearityCheck:
     skew_df = d * (d + 1) * (d + 2) / 6
     skew_p = float(stats.chi2.sf(m * skewness / 6, skew_df))
     kurtosis = float(np.mean(np.sum(Z**2, axis=1) ** 2))
+    # under normality E = d(d+2), Var = 8 d(d+2) / n (Mardia 1970)
     kurtosis_z = float((kurtosis - d * (d + 2)) / np.sqrt(8 * d * (d + 2) / n))
     curvature = None
     if basis is not None and basis.shape[1] > 0:
         curvature = _inverse_mean_curvature(Z, (X - X.mean(axis=0)) @ basis)
     doubtful = (curvature is not None and curvature > CURVATURE_LIMIT) or skew_p < SKEWNESS_P_LIMIT
-    return LinearityCheck(curvature, skewness, skew_p, kurtosis, kurtosis_z, bool(doubtful))
+    return LinearityCheck(curvature, skewness, skew_p, kurtosis, kurtosis_z, bool(doubtful),
+                          float(d * (d + 2)))
 
 
 def _inverse_mean_curvature(Z: np.ndarray, summaries: np.ndarray) -> float:

@@ -15,12 +15,15 @@ import numpy as np
 from sklearn.utils.validation import check_is_fitted
 
 from ._validation import check_finite_matrix
+from .loadings import leading_features
 from .persistence import atomic_write
 
 #: File names used by :func:`write_all_plots`.
 EIGENVALUES_FILE = "eigenvalues.png"
 SUFFICIENT_SUMMARY_FILE = "sufficient_summary.png"
 BOOTSTRAP_ANGLES_FILE = "bootstrap_angles.png"
+#: Every file :func:`write_all_plots` may write (a result's plot folder holds some of these).
+PLOT_FILES = (EIGENVALUES_FILE, SUFFICIENT_SUMMARY_FILE, BOOTSTRAP_ANGLES_FILE)
 _DPI = 100
 _CHOSEN_COLOUR = "#1f6f8b"
 _OTHER_COLOUR = "#b8c4cc"
@@ -95,13 +98,15 @@ def plot_sufficient_summary(fitted, X, y, path, title: str | None = None) -> Pat
         ``subspace_basis_``; an estimator projects ``X`` on ``basis_``.
     X : array-like of shape (n_samples, n_features)
     y : array-like of shape (n_samples,)
-        Numeric response or class labels (drawn as codes, one row per class).
+        Numeric response or class labels (drawn as codes, one row per class);
+        a named pandas Series names the response axis.
     path : str or Path
     title : str, optional
 
     Returns
     -------
     Path
+        Axes are labelled with each direction's leading standardised loadings.
 
     References
     ----------
@@ -111,24 +116,25 @@ def plot_sufficient_summary(fitted, X, y, path, title: str | None = None) -> Pat
     Figure = _figure_class()
     scores, labels = _leading_scores(fitted, X)
     response, classes = _plottable_response(y, scores.shape[0])
+    target = str(getattr(y, "name", None) or "response")
     panels = 1 if scores.shape[1] == 1 else 3
     figure = Figure(figsize=(4.2 * panels, 4.0))
     share = {"s": 8, "alpha": 0.6, "edgecolors": "none"}
     for index in range(min(scores.shape[1], 2)):
         axes = figure.add_subplot(1, panels, index + 1)
         axes.scatter(scores[:, index], response, color=_CHOSEN_COLOUR, **share)
-        axes.set_xlabel(labels[index])
-        axes.set_ylabel("response" if classes is None else "class")
+        axes.set_xlabel(labels[index], fontsize=8)
+        axes.set_ylabel(target if classes is None else f"{target} (class)")
         if classes is not None:
             axes.set_yticks(np.arange(classes.size), [str(c) for c in classes])
     if panels == 3:
         axes = figure.add_subplot(1, 3, 3)
         colour_map = "viridis" if classes is None else "tab10"
         points = axes.scatter(scores[:, 0], scores[:, 1], c=response, cmap=colour_map, **share)
-        axes.set_xlabel(labels[0])
-        axes.set_ylabel(labels[1])
+        axes.set_xlabel(labels[0], fontsize=8)
+        axes.set_ylabel(labels[1], fontsize=8)
         bar = figure.colorbar(points, ax=axes)
-        bar.set_label("response" if classes is None else "class code")
+        bar.set_label(target if classes is None else f"{target} (class code)")
     figure.suptitle(title or f"sufficient summary plot ({_subspace_name(fitted)})")
     figure.tight_layout()
     return _save(figure, path)
@@ -262,6 +268,14 @@ def write_all_plots(lift_or_estimator, X, y, folder, stability=None) -> list[Pat
     return paths
 
 
+def require_matplotlib() -> None:
+    """Raise an ImportError that says how to install matplotlib when it is missing.
+
+    Callers check this before any long computation whose result they plot.
+    """
+    _figure_class()
+
+
 # ------------------------------------------------------------------ helpers
 def _figure_class():
     """matplotlib's Figure, or an ImportError that says how to install it."""
@@ -314,7 +328,11 @@ def _leading_scores(fitted, X) -> tuple[np.ndarray, list[str]]:
         )
     if hasattr(fitted, "lift_"):  # DirectionLift: its subspace lives in standardised inputs
         data = (data - fitted.mean_) / fitted.scale_
-    labels = [f"direction {k + 1}" for k in range(2)]
+    loadings = getattr(fitted, "standardised_loadings_", None)
+    if loadings is None:
+        loadings = estimator.standardised_loadings_
+    labels = [f"direction {k + 1}: {leading_features(loadings.iloc[k], top=2)}"
+              for k in range(min(2, len(loadings)))]
     if basis.shape[1] == 0:
         directions = np.asarray(getattr(estimator, "directions_", np.zeros((basis.shape[0], 0))))
         usable = np.flatnonzero(np.linalg.norm(directions, axis=0) > 0)

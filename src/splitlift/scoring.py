@@ -18,8 +18,14 @@ from sklearn.utils import check_random_state
 
 from . import geometry
 from ._progress import parallel_map
-from ._validation import check_basis, check_finite_matrix, check_sample_count
-from .lift import _RANK_TOLERANCE, LiftMatrix
+from ._validation import (
+    as_real_array,
+    check_basis,
+    check_finite_matrix,
+    check_response,
+    check_sample_count,
+)
+from .lift import LiftMatrix, divide_columns, lifted_features, zero_row_defect
 from .moments import _is_discrete
 from .selection import cross_validated_error, make_folds, seeded_clone
 
@@ -159,9 +165,12 @@ def score_candidates(candidates, X=None, y=None, reference=None, estimator=None,
     ``A diag(1 / scale)``; its ``input_mean`` only translates the lifted
     data, which changes neither the leakage nor an axis-split forest.
 
-    A candidate is valid when it is a 2-D matrix with ``d`` columns, finite,
-    with no zero row and of rank d (relative singular-value tolerance 1e-10,
-    as :class:`LiftMatrix`); it is then normalised to ``Σ_i ‖a_i‖ = 1``.
+    A candidate is valid when it is a real 2-D matrix with ``d`` columns,
+    finite, with no zero row and unit directions ``a_i / ‖a_i‖`` of rank d
+    (relative singular-value tolerance 1e-10, as :class:`LiftMatrix`); it is
+    then normalised to ``Σ_i ‖a_i‖ = 1``. Norms, rank and leakage are
+    computed after dividing by the largest entry, so a matrix and any
+    positive multiple of it (1e-300 or 1e300 times) score alike.
 
     References
     ----------
@@ -281,7 +290,8 @@ def _build_context(X, y, reference, estimator, forest, cv, random_state):
     classify = False
     if X is not None:
         data = check_finite_matrix(X, "X")
-        response = _check_response(y, data.shape[0])
+        response = check_response(y, data.shape[0])
+        check_sample_count(data.shape[0])
         classify = is_classifier(forest) if forest is not None else _is_discrete(response)
         fitted_forest = _prepare_forest(forest, classify, forest_seed)
         folds = make_folds(cv, data, response, classify, fold_seed)
@@ -311,21 +321,6 @@ def _build_context(X, y, reference, estimator, forest, cv, random_state):
         ("misclassification rate (1 - accuracy)" if classify else "mean squared error"),
     }
     return context, info
-
-
-def _check_response(y, n_samples: int) -> np.ndarray:
-    response = np.asarray(y)
-    if response.ndim == 2 and response.shape[1] == 1:
-        response = response.ravel()
-    if response.ndim != 1 or response.shape[0] != n_samples:
-        raise ValueError(
-            f"y must be a 1-D array with one entry per row of X ({n_samples}), got shape "
-            f"{response.shape}."
-        )
-    if response.dtype.kind in "fc" and not np.all(np.isfinite(response)):
-        raise ValueError("y contains NaN or infinite values; drop or impute those rows.")
-    check_sample_count(n_samples)
-    return response
 
 
 def _prepare_forest(forest, classify: bool, seed: int):
@@ -363,7 +358,8 @@ def _score_one(name: str, item, context: _Context) -> dict:
     )
     if context.X is not None:
         row["cv_error"], row["cv_error_std"] = cross_validated_error(
-            context.X @ lift.matrix.T, context.y, context.forest, context.folds, context.classify)
+            lifted_features(context.X, lift.matrix), context.y, context.forest, context.folds,
+            context.classify)
     return row
 
 
@@ -374,9 +370,9 @@ def _read_candidate(item):
     if isinstance(item, str | Path):
         return _read_file(Path(item))
     try:
-        return np.asarray(item, dtype=float)
-    except (TypeError, ValueError) as error:
-        raise _InvalidCandidate(f"not a numeric matrix ({error})") from None
+        return as_real_array(item, "candidate")
+    except ValueError as error:
+        raise _InvalidCandidate(str(error).rstrip(".")) from None
 
 
 def _read_file(path: Path):
@@ -430,8 +426,9 @@ def _valid_lift(candidate, n_features: int) -> LiftMatrix:
                 candidate.n_directions, candidate.rank())
         if candidate.input_scale is None:
             return candidate
-        # fold the standardisation into input coordinates: A ((x - m) / s) = (A / s) x - const
-        candidate = candidate.matrix / candidate.input_scale
+        # fold the standardisation into input coordinates: A ((x - m) / s) = (A / s) x - const,
+        # up to a positive factor (normalisation removes it), without overflow
+        candidate = divide_columns(candidate.matrix, candidate.input_scale)[0]
     matrix = candidate
     if matrix.ndim != 2:
         raise _InvalidCandidate(f"not a 2-D matrix (shape {matrix.shape})")
@@ -441,17 +438,15 @@ def _valid_lift(candidate, n_features: int) -> LiftMatrix:
             f"shape {matrix.shape} does not match {n_features} features", m or None)
     if not np.all(np.isfinite(matrix)):
         raise _InvalidCandidate("contains NaN or infinite entries", m)
-    norms = np.linalg.norm(matrix, axis=1)
-    if np.any(norms == 0):
-        zero = np.flatnonzero(norms == 0)
-        raise _InvalidCandidate(
-            f"row {int(zero[0])} is zero" if zero.size == 1 else
-            f"{zero.size} zero rows (first {int(zero[0])})", m)
-    singular = np.linalg.svd(matrix / norms.sum(), compute_uv=False)
-    rank = int(np.sum(singular > _RANK_TOLERANCE * singular[0]))  # LiftMatrix's rule
+    norms = geometry.row_norms(matrix)
+    normalised = geometry.normalise_rows(matrix) if norms.sum() > 0 else matrix
+    defect = zero_row_defect(norms, geometry.row_norms(normalised))
+    if defect:
+        raise _InvalidCandidate(defect, m)
+    rank = geometry.direction_rank(normalised)  # LiftMatrix's rule
     if rank < n_features:
         raise _InvalidCandidate(f"rank {rank} < {n_features}", m, rank)
-    return LiftMatrix(matrix)
+    return LiftMatrix(normalised)
 
 
 def _bound_factor(context: _Context, eps: float) -> float:

@@ -98,7 +98,7 @@ def make_folds(cv, X, y, classify: bool, seed: int) -> list:
             )
         splitter = (StratifiedKFold if classify else KFold)(
             int(cv), shuffle=True, random_state=seed)
-    elif hasattr(cv, "split") or np.iterable(cv):
+    elif (hasattr(cv, "split") or np.iterable(cv)) and not isinstance(cv, str | bytes):
         splitter = check_cv(cv, y, classifier=classify)
     else:
         raise ValueError(
@@ -589,7 +589,7 @@ class DirectionLiftCV(TransformerMixin, BaseEstimator):
         return self.best_lift_.transform(X)
 
     def get_feature_names_out(self, input_features=None) -> np.ndarray:
-        """Output names: the input names (pass-through or kept), then ``direction_0``, ...
+        """Output names: the input names (pass-through or kept), then the lifted columns.
 
         Parameters
         ----------

@@ -6,12 +6,26 @@ from numbers import Integral, Real
 
 import numpy as np
 from sklearn.base import BaseEstimator, TransformerMixin, clone
+from sklearn.utils import check_random_state
 from sklearn.utils._param_validation import HasMethods, Interval, StrOptions
 from sklearn.utils.validation import _check_feature_names_in, check_is_fitted, validate_data
 
+from ._validation import check_sample_weight
+from .dask_support import (
+    LINEARITY_SAMPLE_ROWS,
+    is_dask_collection,
+    lifted_extent,
+    location_scale,
+    register_features,
+    sample_of,
+    transform_lazily,
+)
 from .estimators import SlicedInverse
+from .estimators._base import FLOAT_DTYPES
 from .lift import LiftMatrix
 from .linearity import check_linearity
+from .loadings import loadings_frame
+from .moments import column_location_scale
 
 
 class DirectionLift(TransformerMixin, BaseEstimator):
@@ -19,7 +33,8 @@ class DirectionLift(TransformerMixin, BaseEstimator):
 
     ``fit`` fits a clone of ``estimator``, builds a :class:`LiftMatrix` around
     its subspace, and ``transform`` returns the lifted features, one column
-    per split direction (named ``direction_0``, ``direction_1``, ...), after
+    per split direction (named ``subspace_<i>`` inside the estimated subspace and
+    ``complement_<i>`` in its complement), after
     the (standardised) inputs when ``keep_inputs``.
 
     Which forests the weights reach: ``complement_weight``, ``weight_power``
@@ -68,7 +83,9 @@ class DirectionLift(TransformerMixin, BaseEstimator):
         per direction.
     random_state : int, RandomState or None, default None
         Passed to :meth:`LiftMatrix.from_subspace` (None: deterministic
-        spread of directions).
+        spread of directions), and to the estimator (and through it to its
+        ``dim="auto"`` rule) when the estimator's own ``random_state`` is
+        None, so one seed makes the whole fit reproducible.
     keep_inputs : bool, default False
         Return the (standardised) input columns, under their own names,
         followed by the lifted directions, so a forest can cut along both the
@@ -89,6 +106,13 @@ class DirectionLift(TransformerMixin, BaseEstimator):
     mean_, scale_ : ndarray of shape (n_features_in_,)
         Standardisation; zeros and ones when ``standardize=False``.
     n_samples_fit_ : int
+        Rows fitted on (with positive weight).
+    lifted_extent_ : float
+        Sum over the lift's directions of the training data's extent along
+        them: the clock rate of a STIT tree's root cell (``1 / lifted_extent_``
+        is the expected time of its first cut).
+    loadings_, standardised_loadings_ : pandas.DataFrame
+        Directions x features tables of the estimated subspace, by name.
     linearity_ : splitlift.linearity.LinearityCheck
         How far the standardised inputs are from the moment methods'
         linearity condition, along the estimated subspace.
@@ -151,24 +175,36 @@ class DirectionLift(TransformerMixin, BaseEstimator):
         self.random_state = random_state
         self.keep_inputs = keep_inputs
 
-    def fit(self, X, y):
+    def fit(self, X, y, sample_weight=None):
         """Fit the estimator on (standardised) X and build the lift.
 
         Parameters
         ----------
-        X : array-like of shape (n_samples, n_features)
+        X : array-like of shape (n_samples, n_features), or a Dask array or DataFrame
+            Dask input is never loaded whole (see :mod:`splitlift.dask_support`).
         y : array-like of shape (n_samples,)
             Numeric response or class labels (as the estimator allows).
+        sample_weight : array-like of shape (n_samples,), optional
+            Frequency weights, used by the standardisation and passed to the
+            estimator (integer weights give the fit on repeated rows).
+            Requested through metadata routing with
+            ``set_fit_request(sample_weight=True)``.
 
         Returns
         -------
         self
         """
         self._validate_params()
-        X = validate_data(self, X, dtype=float)
-        standardised = self._fit_standardisation(X)
-        estimator = SlicedInverse() if self.estimator is None else self.estimator
-        self.estimator_ = clone(estimator).fit(standardised, y)
+        lazy = is_dask_collection(X)
+        if lazy:
+            standardised = self._fit_standardisation_lazily(X, sample_weight)
+        else:
+            X = validate_data(self, X, dtype=float)
+            sample_weight = check_sample_weight(sample_weight, X.shape[0])
+            standardised = self._fit_standardisation(X, sample_weight)
+        estimator = clone(SlicedInverse() if self.estimator is None else self.estimator)
+        self.estimator_ = _seed_estimator(estimator, self.random_state).fit(
+            standardised, y, sample_weight=sample_weight)
         self.subspace_basis_ = self.estimator_.basis_
         names = getattr(self, "feature_names_in_", None)
         self.lift_ = LiftMatrix.from_subspace(
@@ -187,19 +223,38 @@ class DirectionLift(TransformerMixin, BaseEstimator):
             input_scale=self.scale_ if self.standardize else None,
         )
         self.output_matrix_ = self.lift_.output_matrix()
-        self.n_samples_fit_ = X.shape[0]
-        self.linearity_ = check_linearity(standardised, self.subspace_basis_)
+        # the STIT clock rate of the root cell: sets the scale of a suggested lifetime
+        if lazy:  # one more pass for the extent; the diagnostics read a sample of the rows
+            self.lifted_extent_ = lifted_extent(standardised, self.lift_.matrix)
+            self.linearity_ = check_linearity(
+                np.asarray(sample_of(standardised, LINEARITY_SAMPLE_ROWS)), self.subspace_basis_)
+        else:
+            self.lifted_extent_ = float(np.sum(np.ptp(standardised @ self.lift_.matrix.T,
+                                                      axis=0)))
+            self.n_samples_fit_ = X.shape[0] if sample_weight is None else int(
+                np.count_nonzero(sample_weight))
+            self.linearity_ = check_linearity(standardised, self.subspace_basis_)
         return self
 
-    def _fit_standardisation(self, X: np.ndarray) -> np.ndarray:
+    def _fit_standardisation(self, X: np.ndarray, sample_weight=None) -> np.ndarray:
         d = X.shape[1]
         if not self.standardize:
             self.mean_, self.scale_ = np.zeros(d), np.ones(d)
             return X
-        self.mean_ = X.mean(axis=0)
-        scale = X.std(axis=0)
+        self.mean_, scale = column_location_scale(X, sample_weight)
         self.scale_ = np.where(scale > 0, scale, 1.0)
-        return (X - self.mean_) / self.scale_
+        return _standardise(X, self.mean_, self.scale_)
+
+    def _fit_standardisation_lazily(self, X, sample_weight):
+        """Dask input: one pass for the column moments; the standardised data stay lazy."""
+        register_features(self, X, reset=True)
+        mean, scale, self.n_samples_fit_ = location_scale(X, sample_weight)
+        d = mean.size
+        if not self.standardize:
+            self.mean_, self.scale_ = np.zeros(d), np.ones(d)
+            return X
+        self.mean_, self.scale_ = mean, np.where(scale > 0, scale, 1.0)
+        return _standardise(X, self.mean_, self.scale_)
 
     def transform(self, X) -> np.ndarray:
         """Lifted features ``((X - mean_) / scale_) @ output_matrix_.T``.
@@ -211,10 +266,11 @@ class DirectionLift(TransformerMixin, BaseEstimator):
         Returns
         -------
         ndarray of shape (n_samples, n_output)
+            float32 for float32 input, else float64. Dask input gives a lazy
+            Dask array, or a Dask DataFrame named by ``get_feature_names_out()``.
         """
         check_is_fitted(self, "lift_")
-        X = validate_data(self, X, dtype=float, reset=False)
-        return ((X - self.mean_) / self.scale_) @ self.output_matrix_.T
+        return _lifted(self, X)
 
     def reference_in_lift_coordinates(self, reference) -> np.ndarray:
         """Map a subspace given in input coordinates to the lift's coordinates.
@@ -283,8 +339,30 @@ class DirectionLift(TransformerMixin, BaseEstimator):
 
         return LiftReport.from_direction_lift(self, reference, stability)
 
+    @property
+    def loadings_(self):
+        """Directions x features table (DataFrame) of the estimated subspace, inputs as given.
+
+        One row per estimated direction, of unit length with its largest
+        loading positive; columns named after the features. Coefficients on
+        the inputs in their own units: compare across features with
+        ``standardised_loadings_``.
+        """
+        check_is_fitted(self, "lift_")
+        return loadings_frame(self.subspace_basis_, getattr(self, "feature_names_in_", None),
+                              scale=self.scale_)
+
+    @property
+    def standardised_loadings_(self):
+        """The directions' weights per standard deviation of each feature (unit length)."""
+        check_is_fitted(self, "lift_")
+        spread = self.estimator_._feature_scale
+        return loadings_frame(self.subspace_basis_, getattr(self, "feature_names_in_", None),
+                              scale=1.0 / np.where(spread > 0, spread, 1.0))
+
+
     def get_feature_names_out(self, input_features=None) -> np.ndarray:
-        """Output column names: the inputs' names when kept, then ``direction_0``, ...
+        """Output names: the inputs' names when kept, then ``subspace_<i>``, ``complement_<i>``.
 
         Parameters
         ----------
@@ -348,10 +426,49 @@ class ApplyLift(TransformerMixin, BaseEstimator):
         return self
 
     def transform(self, X) -> np.ndarray:
-        """Lifted features of X."""
+        """Lifted features of X (float32 kept; lazy for Dask input, as DirectionLift)."""
         check_is_fitted(self, "lift_")
-        X = validate_data(self, X, dtype=float, reset=False)
-        return self.lift_.apply(X)
+        return _lifted(self, X)
+
+    def get_feature_names_out(self, input_features=None) -> np.ndarray:
+        """Output column names, as :meth:`LiftMatrix.output_feature_names` gives them.
+
+        Parameters
+        ----------
+        input_features : array-like of str, optional
+            Input names, used when the lift keeps its inputs.
+
+        Returns
+        -------
+        ndarray of str
+        """
+        check_is_fitted(self, "lift_")
+        names = None if input_features is None else list(input_features)
+        return np.asarray(self.lift_.output_feature_names(names), dtype=object)
+
+
+def _lifted(transformer, X):
+    """``lift_.apply`` (one code path for every place a lift is applied), keeping float32
+    and staying lazy for Dask input."""
+    if is_dask_collection(X):
+        return transform_lazily(transformer, X, transformer.lift_.apply)
+    X = validate_data(transformer, X, dtype=FLOAT_DTYPES, reset=False)
+    return transformer.lift_.apply(X).astype(X.dtype, copy=False)
+
+
+def _standardise(X: np.ndarray, mean: np.ndarray, scale: np.ndarray) -> np.ndarray:
+    """``(X - mean) / scale`` without overflow: dividing first keeps finite rows finite."""
+    return X / scale - mean / scale
+
+
+def _seed_estimator(estimator, random_state):
+    """Give an unseeded estimator the transformer's seed, so one seed fixes the whole fit."""
+    params = estimator.get_params(deep=False)
+    if random_state is None or "random_state" not in params or params["random_state"] is not None:
+        return estimator
+    seed = random_state if isinstance(random_state, Integral) else \
+        check_random_state(random_state).randint(np.iinfo(np.int32).max)
+    return estimator.set_params(random_state=seed)
 
 
 def _json_safe(value):

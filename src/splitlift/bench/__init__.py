@@ -9,7 +9,9 @@ from __future__ import annotations
 import io
 import json
 import sys
+import time
 
+from .._progress import progress_bar
 from ._timing import machine_description
 
 SUITES = ("speed", "accuracy", "rate", "real")
@@ -49,11 +51,15 @@ def run_bench(suite: str = "speed", quick: bool = False, json_path=None, stream=
               f"{machine['cpu_count']} cores, {machine['platform']}\n")
     chosen = SUITES if suite == "all" else (suite,)
     sections = {}
-    for name in chosen:
-        start = len(out.getvalue())
-        results[name] = _suite_runner(name)(quick, out)
-        out.flush()
-        sections[name] = out.getvalue()[start:]
+    with progress_bar(len(chosen), "bench suites") as bar:
+        for name in chosen:
+            start = len(out.getvalue())
+            began = time.perf_counter()
+            results[name] = _suite_runner(name)(quick, out)
+            out.write(f"\n({name} suite: {time.perf_counter() - began:.0f} s)\n")
+            out.flush()
+            sections[name] = out.getvalue()[start:]
+            bar.update(1)
     from ..persistence import atomic_write
 
     if json_path is not None:

@@ -12,6 +12,8 @@ from datetime import datetime, timezone
 
 import numpy as np
 
+from .._tables import text_table
+
 
 def best_time(function: Callable[[], object], repeats: int = 3) -> float:
     """Best wall-clock time of ``repeats`` calls, in seconds."""
@@ -61,15 +63,5 @@ def machine_description() -> dict:
 
 
 def table(rows: list[dict], columns: list[tuple[str, str, str]]) -> str:
-    """A plain-text table: columns are (key, header, format spec); text columns left-aligned."""
-    cells = [[("-" if row.get(key) is None else format(row.get(key), spec))
-              for key, _, spec in columns] for row in rows]
-    widths = [max([len(header)] + [len(line[i]) for line in cells])
-              for i, (_, header, _) in enumerate(columns)]
-    left = [spec == "s" for _, _, spec in columns]
-
-    def render(values):
-        return "  " + "  ".join(f"{v:<{w}}" if is_text else f"{v:>{w}}"
-                                for v, w, is_text in zip(values, widths, left, strict=True))
-
-    return "\n".join([render([h for _, h, _ in columns])] + [render(line) for line in cells])
+    """A plain-text table: columns are (key, header, format spec); see :mod:`splitlift._tables`."""
+    return text_table(rows, columns)

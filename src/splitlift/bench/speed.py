@@ -5,6 +5,7 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
+from sklearn.base import clone
 
 from ..estimators import HessianDirections, SlicedAverageVariance, SlicedInverse
 from ._timing import best_time, peak_memory, table, timed
@@ -67,7 +68,8 @@ def average_derivative_memory(n_samples: int = 20_000, n_features: int = 20) -> 
 
 def dimension_and_stability(n_samples: int = 10_000, n_features: int = 20,
                             n_boot: int = 200) -> dict:
-    """Time of ``dim="auto"`` (default rule) and of ``stability(n_boot)`` for SIR and OPG."""
+    """Time of ``dim="auto"`` (default rule) against one fixed-dimension fit, and of
+    ``stability(n_boot)``, for SIR and OPG."""
     from ..estimators import GradientOuterProduct
     from ..stability import stability
     from .gradient import synthetic_index_data
@@ -77,10 +79,41 @@ def dimension_and_stability(n_samples: int = 10_000, n_features: int = 20,
     for name, estimator in (("SIR", SlicedInverse(dim="auto")),
                             ("OPG", GradientOuterProduct(dim="auto", random_state=0))):
         auto, _ = timed(lambda estimator=estimator: estimator.fit(X, y))
+        fixed = clone(estimator).set_params(dim=max(estimator.dim_, 1))
+        one_fit, _ = timed(lambda fixed=fixed: fixed.fit(X, y))
         boot, _ = timed(lambda estimator=estimator: stability(
             estimator, X, y, n_boot=n_boot, random_state=0, progress=False))
         rows.append({"method": name, "rule": estimator.dim_test_.rule, "dim": estimator.dim_,
-                     "auto_seconds": auto, "stability_seconds": boot, "n_boot": n_boot})
+                     "fit_seconds": one_fit, "auto_seconds": auto,
+                     "auto_over_fit": auto / one_fit, "stability_seconds": boot,
+                     "n_boot": n_boot})
+    return {"n_samples": n_samples, "n_features": n_features, "rows": rows}
+
+
+def dimension_choice(n_samples: int = 4_000, n_features: int = 20, seeds=(0, 1, 2),
+                     modes=("local", "refit")) -> dict:
+    """How often OPG's ladle picks the true dimension, redrawing local terms or refitting.
+
+    The test functions are those of :func:`~splitlift.bench.gradient.synthetic_index_data`
+    with 1, 2 and 3 hidden directions.
+    """
+    from ..dimension import LadleEstimator
+    from ..estimators import GradientOuterProduct
+    from .gradient import synthetic_index_data
+
+    rows = []
+    for mode in modes:
+        right, seconds = 0, 0.0
+        for true_dim in (1, 2, 3):
+            for seed in seeds:
+                X, y, _ = synthetic_index_data(n_samples, n_features, true_dim, seed)
+                estimator = GradientOuterProduct(dim="auto", random_state=seed, dim_rule=(
+                    LadleEstimator(resample=mode, random_state=seed)))
+                elapsed, _ = timed(lambda estimator=estimator, X=X, y=y: estimator.fit(X, y))
+                right += estimator.dim_ == true_dim
+                seconds += elapsed
+        rows.append({"resample": mode, "right": right, "cases": 3 * len(seeds),
+                     "seconds": seconds})
     return {"n_samples": n_samples, "n_features": n_features, "rows": rows}
 
 
@@ -91,8 +124,27 @@ def forest_speed(n_samples: int = 20_000, n_features: int = 10, n_trees: int = 1
     return benchmark_forest(n_samples, n_features, n_trees, random_state=0)
 
 
+def command_line_startup(repeats: int = 3) -> dict:
+    """Best wall time of ``python -m splitlift --help`` in a fresh process (lazy imports)."""
+    import subprocess
+    import sys
+    import time
+
+    seconds = []
+    for _ in range(repeats):
+        began = time.perf_counter()
+        subprocess.run([sys.executable, "-m", "splitlift", "--help"], check=True,
+                       capture_output=True)
+        seconds.append(time.perf_counter() - began)
+    return {"help_seconds": min(seconds), "repeats": repeats}
+
+
 def run_speed(quick: bool, out) -> dict:
     results = {}
+    startup = command_line_startup()
+    results["command_line_startup"] = startup
+    out.write(f"\ncommand-line start-up: splitlift --help in {startup['help_seconds']:.3f} s "
+              f"(best of {startup['repeats']} fresh processes)\n")
     n = 100_000 if quick else 1_000_000
     results["moment_methods"] = moment_methods(n, 20, 2 if quick else 3)
     out.write(f"\nmoment methods, n = {n}, d = 20 (best of repeats, seconds)\n")
@@ -113,13 +165,23 @@ def run_speed(quick: bool, out) -> dict:
     out.write(f"\ndensity-weighted average derivative, n = {ade['n_samples']}, d = 20: "
               f"{ade['seconds']:.2f} s, peak {ade['peak_memory_mb']:.1f} MB "
               f"(X {ade['data_memory_mb']:.1f} MB), angle {ade['largest_angle_degrees']:.2f} deg\n")
-    auto = dimension_and_stability(2_000 if quick else 10_000, 20, 50 if quick else 200)
-    results["dimension_and_stability"] = auto
-    out.write(f"\ndim='auto' and stability, n = {auto['n_samples']}, d = 20\n")
-    out.write(table(auto["rows"], [
-        ("method", "method", "s"), ("rule", "default rule", "s"), ("dim", "dim", "d"),
-        ("auto_seconds", "auto (s)", ".2f"), ("n_boot", "n_boot", "d"),
-        ("stability_seconds", "stability (s)", ".2f")]) + "\n")
+    for key, n_auto in (("dimension_and_stability", 5_000 if quick else 10_000),
+                        ("dimension_large_n", 20_000 if quick else 100_000)):
+        auto = dimension_and_stability(n_auto, 20, 50 if quick else 200)
+        results[key] = auto
+        out.write(f"\ndim='auto' and stability, n = {auto['n_samples']}, d = 20\n")
+        out.write(table(auto["rows"], [
+            ("method", "method", "s"), ("rule", "default rule", "s"), ("dim", "dim", "d"),
+            ("fit_seconds", "one fit (s)", ".2f"), ("auto_seconds", "auto (s)", ".2f"),
+            ("auto_over_fit", "auto/fit", ".2f"), ("n_boot", "n_boot", "d"),
+            ("stability_seconds", "stability (s)", ".2f")]) + "\n")
+    choice = (dimension_choice(3_000, 20, (0,), ("local",)) if quick  # refits take minutes
+              else dimension_choice(4_000, 20, (0, 1, 2)))
+    results["dimension_choice"] = choice
+    out.write(f"\nOPG ladle: true dimension chosen, n = {choice['n_samples']}, d = 20\n")
+    out.write(table(choice["rows"], [
+        ("resample", "resample", "s"), ("right", "right", "d"), ("cases", "of", "d"),
+        ("seconds", "seconds", ".1f")]) + "\n")
     forest = forest_speed(5_000 if quick else 20_000, 10, 50 if quick else 100)
     results["forest"] = forest
     out.write(f"\nSTIT forest (axis lift, full growth) vs ExtraTreesRegressor(max_features=1), "

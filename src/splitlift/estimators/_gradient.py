@@ -16,6 +16,7 @@ from ._local import (
     chunk_size,
     gaussian_weights,
     local_linear_gradients,
+    neighbour_shares,
     neighbourhoods,
     response_columns,
 )
@@ -78,26 +79,36 @@ class GradientOuterProduct(SubspaceEstimator):
         current ``dim`` directions only, then re-estimates the gradients.
         Sharper when the response varies fast along the subspace; each
         iteration costs about one more pass.
+    sample_rows : int or None, default None
+        Dask input only: the fit uses a uniform random sample of at most this
+        many rows, loaded into memory (neighbours need rows at hand); None
+        means 100 000. Recorded in ``row_sample_``.
     random_state : int, RandomState instance or None, default None
-        Seeds the anchor subsample.
+        Seeds the anchor subsample, the row sample of Dask input, and the
+        resampling of the ``dim="auto"`` rule when the rule's own
+        ``random_state`` is None.
 
     Attributes
     ----------
     basis_ : ndarray of shape (n_features_in_, dim_)
         Orthonormal basis of the estimated subspace, input coordinates.
     directions_ : ndarray of shape (n_features_in_, n_features_in_)
-        Eigenvectors of ``outer_product_`` as columns, ordered like
-        ``eigenvalues_``; a zero column stands for a constant input column.
+        Unit input directions ``v_k / scale`` from the eigenvectors ``v_k`` of
+        ``outer_product_``, ordered like ``eigenvalues_``; a zero column
+        stands for a constant input column.
     eigenvalues_ : ndarray of shape (n_features_in_,)
         Eigenvalues of ``outer_product_``, descending.
     outer_product_ : ndarray of shape (n_features_in_, n_features_in_)
-        Averaged outer product of the estimated gradients, input coordinates
-        (summed over class indicators for class labels).
+        Averaged outer product of the estimated gradients in standardised
+        coordinates (summed over class indicators for class labels).
     dim_ : int
     n_neighbors_ : int
         Neighbourhood size used.
     anchor_indices_ : ndarray of int
         Training rows at which gradients were estimated.
+    row_sample_ : dict or None
+        For Dask input, the row sample fitted on: ``rows_total``,
+        ``rows_used`` and ``random_state``; None for in-memory input.
     n_features_in_ : int
     feature_names_in_ : ndarray of str
         Present when ``X`` had string column names.
@@ -113,10 +124,13 @@ class GradientOuterProduct(SubspaceEstimator):
     ``b_i`` of the weighted least-squares fit of ``y_j`` on ``z_j - z_i``
     over its ``k`` nearest neighbours, with weights
     ``exp(-‖z_j - z_i‖² / (2 h²))``, estimates the gradient in standardised
-    coordinates; ``b_i / scale`` is the gradient in input coordinates. The
-    method matrix is ``M = (1/m) Σ_i g_i g_i^T`` over the ``m`` anchors.
-    For ``y = g(B^T x) + ε`` every gradient lies in ``span(B)``, so the
-    leading eigenvectors of ``M`` estimate it (Xia et al. 2002). Refined
+    coordinates. The method matrix is ``M = (1/m) Σ_i b_i b_i^T`` over the
+    ``m`` anchors. For ``y = g(B^T x) + ε`` every gradient lies in
+    ``span(B)`` (in standardised coordinates, ``span(D B)`` with ``D`` the
+    column scales), so the leading eigenvectors ``v_k`` of ``M`` estimate it
+    (Xia et al. 2002) and ``D^{-1} v_k`` are the input directions. ``M`` is
+    decomposed in standardised coordinates because there the estimate does
+    not depend on the units of the columns. Refined
     OPG (Xia 2007) replaces the distance by ``‖V^T (x_j - x_i)‖``, with
     ``V`` the current directions sphered to unit covariance, so that the
     neighbourhoods shrink only along the subspace.
@@ -159,8 +173,12 @@ class GradientOuterProduct(SubspaceEstimator):
         "bandwidth": [Interval(Real, 0, None, closed="neither"), None],
         "n_anchors": [Interval(Integral, 1, None, closed="left"), None],
         "refine": [Interval(Integral, 0, None, closed="left")],
+        "sample_rows": [Interval(Integral, 1, None, closed="left"), None],
         "random_state": ["random_state"],
     }
+
+    _weights_rows_by_response = True
+    _neighbourhoods_in_standardised_inputs = True
 
     def __init__(
         self,
@@ -170,6 +188,7 @@ class GradientOuterProduct(SubspaceEstimator):
         bandwidth=None,
         n_anchors=None,
         refine=0,
+        sample_rows=None,
         random_state=None,
     ):
         self.dim = dim
@@ -178,9 +197,10 @@ class GradientOuterProduct(SubspaceEstimator):
         self.bandwidth = bandwidth
         self.n_anchors = n_anchors
         self.refine = refine
+        self.sample_rows = sample_rows
         self.random_state = random_state
 
-    def _eigen_decomposition(self, X, y):
+    def _eigen_decomposition(self, X, y, weights=None):
         n = X.shape[0]
         check_sample_count(n, 3)
         if self.refine and isinstance(self.dim, str):
@@ -188,29 +208,51 @@ class GradientOuterProduct(SubspaceEstimator):
                 "refine > 0 needs an integer dim, because refined neighbourhoods follow dim "
                 "directions; pass dim=k, or use dim='auto' with refine=0."
             )
-        standardisation = Standardisation.fit(X)
+        standardisation = Standardisation.fit(X, weights)
         Z = standardisation.transform(X)
         responses, _ = response_columns(y)
-        self.n_neighbors_ = self._neighbourhood_size(n, Z.shape[1])
-        self.anchor_indices_ = self._anchors(n)
+        # with frequency weights the sample holds sum(w) rows, as if repeated
+        size = n if weights is None else max(int(round(weights.sum())), 1)
+        self.n_neighbors_ = self._neighbourhood_size(size, Z.shape[1])
+        self.anchor_indices_ = self._anchors(n, size)
 
-        outer = self._outer_product(Z, Z, responses, standardisation)
+        gradients = self._anchor_gradients(Z, Z, responses, weights)
+        # with weights each anchor's outer products count its weight
+        self._anchor_weights = None if weights is None else weights[self.anchor_indices_]
         for _ in range(self.refine):
-            values, vectors = _descending_eigh(outer)
-            current = vectors[:, : self.dim]
-            # index values V^T x in standardised terms, sphered within the subspace
-            index = Z @ (standardisation.scale[standardisation.kept, None] * current)
-            sphered = Whitening.fit(index).transform(index)
-            outer = self._outer_product(sphered, Z, responses, standardisation)
+            values, vectors = _descending_eigh(
+                _average_outer_product(gradients, self._anchor_weights))
+            # index values V^T z, sphered within the subspace
+            index = Z @ vectors[:, : self.dim]
+            sphered = Whitening.fit(index, sample_weight=weights).transform(index)
+            gradients = self._anchor_gradients(sphered, Z, responses, weights)
 
+        # kept for resampling rules, which reuse the local fits instead of refitting
+        self._gradients, self._standardisation = gradients, standardisation
+        outer = _average_outer_product(gradients, self._anchor_weights)
+        self.outer_product_ = standardisation.embed(standardisation.embed(outer).T).T
+        return self._eigen_pairs(outer)
+
+    def _eigen_pairs(self, outer: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         values, vectors = _descending_eigh(outer)
-        d, rank = X.shape[1], standardisation.rank
+        d, rank = self._standardisation.kept.size, self._standardisation.rank
         eigenvalues = np.zeros(d)
         eigenvalues[:rank] = values
         directions = np.zeros((d, d))
-        directions[:, :rank] = standardisation.embed(vectors)
-        self.outer_product_ = standardisation.embed(standardisation.embed(outer).T).T
+        directions[:, :rank] = self._standardisation.directions_to_input(vectors)
         return eigenvalues, directions
+
+    def _resampled_directions(self, generator) -> np.ndarray:
+        """Directions from the anchors' gradients drawn with replacement, without refitting.
+
+        Serves the fast resampling rules (``dim="auto"``, stability): the
+        neighbour graph and the local fits are reused, so a replicate costs
+        one (p, p) eigen-decomposition. It captures the variation of the
+        average over anchors, not that of the local fits themselves.
+        """
+        picks = generator.randint(0, self._gradients.shape[0], self._gradients.shape[0])
+        weights = None if self._anchor_weights is None else self._anchor_weights[picks]
+        return self._eigen_pairs(_average_outer_product(self._gradients[picks], weights))[1]
 
     def _neighbourhood_size(self, n: int, p: int) -> int:
         if self.n_neighbors is None:
@@ -222,26 +264,41 @@ class GradientOuterProduct(SubspaceEstimator):
             )
         return int(self.n_neighbors)
 
-    def _anchors(self, n: int) -> np.ndarray:
+    def _anchors(self, n: int, size: int | None = None) -> np.ndarray:
         count = min(DEFAULT_MAX_ANCHORS, n) if self.n_anchors is None else self.n_anchors
-        if count >= n:
+        if count >= (n if size is None else min(n, size)):
             return np.arange(n)
         rng = check_random_state(self.random_state)
-        return np.sort(rng.choice(n, size=count, replace=False))
+        return np.sort(rng.choice(n, size=min(count, n), replace=False))
 
-    def _outer_product(self, metric_points, Z, responses, standardisation) -> np.ndarray:
-        """Average outer product of local linear gradients, input coordinates (kept columns)."""
+    def _anchor_gradients(self, metric_points, Z, responses, weights=None) -> np.ndarray:
+        """Local linear gradients at the anchors, standardised coordinates, shape (m, q, p).
+
+        With frequency weights a neighbourhood holds ``n_neighbors`` units of
+        weight (the farthest row counted in part), as the repeated rows
+        would, and each neighbour's kernel weight is multiplied by its share.
+        """
         k = self.n_neighbors_
-        chunk = chunk_size(k, max(Z.shape[1], responses.shape[1]))
-        total = np.zeros((Z.shape[1], Z.shape[1]))
+        rows_needed = k if weights is None else min(Z.shape[0], k)
+        chunk = chunk_size(rows_needed, max(Z.shape[1], responses.shape[1]))
+        blocks = []
         for rows, distances, indices in neighbourhoods(
-            metric_points, self.anchor_indices_, k, chunk
+            metric_points, self.anchor_indices_, rows_needed, chunk
         ):
-            weights = gaussian_weights(distances, self.bandwidth)
-            gradients = local_linear_gradients(Z, responses, rows, indices, weights)
-            flat = standardisation.gradients_to_input(gradients.reshape(-1, Z.shape[1]))
-            total += flat.T @ flat
-        return total / self.anchor_indices_.size
+            shares = None if weights is None else neighbour_shares(weights[indices], k)
+            kernel = gaussian_weights(distances, self.bandwidth, shares)
+            local = kernel if shares is None else kernel * shares
+            blocks.append(local_linear_gradients(Z, responses, rows, indices, local))
+        return np.concatenate(blocks)
+
+
+def _average_outer_product(gradients: np.ndarray, anchor_weights=None) -> np.ndarray:
+    """``(1/m) Σ_i Σ_c b_ic b_ic^T`` over anchors i and response columns c (weighted: by w_i)."""
+    flat = gradients.reshape(-1, gradients.shape[-1])
+    if anchor_weights is None:
+        return flat.T @ flat / gradients.shape[0]
+    weighted = flat * np.repeat(anchor_weights, gradients.shape[1])[:, None]
+    return weighted.T @ flat / anchor_weights.sum()
 
 
 def _descending_eigh(matrix: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

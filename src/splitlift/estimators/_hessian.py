@@ -5,8 +5,13 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
-from ..moments import DEFAULT_RANK_TOLERANCE, centred_cross_product
+from ..moments import DEFAULT_RANK_TOLERANCE, Whitening
+from ..sufficient_statistics import MomentStatistics, ResponseMoments
 from ._base import MomentEstimator
+
+#: Residuals smaller than this fraction of the response's spread (a thousand
+#: times the float precision) are rounding error: y is fitted exactly.
+EXACT_FIT_TOLERANCE = 1e3 * np.finfo(float).eps
 
 
 class HessianDirections(MomentEstimator):
@@ -24,6 +29,10 @@ class HessianDirections(MomentEstimator):
         X, which removes the linear trend so that curvature stands out.
     rank_tolerance : float, default 1e-10
         See :class:`SlicedInverse`.
+    random_state : int, RandomState instance or None, default None
+        Seeds the resampling of the ``dim="auto"`` rule (bootstrap,
+        permutations or folds) when the rule's own ``random_state`` is None,
+        so that one seed makes the whole fit reproducible.
 
     Attributes
     ----------
@@ -35,6 +44,10 @@ class HessianDirections(MomentEstimator):
     dim_ : int
     whitening_ : splitlift.moments.Whitening
     method_matrix_ : ndarray
+    statistics_ : splitlift.sufficient_statistics.MomentStatistics
+        The mergeable statistics the estimate was made from.
+    n_samples_seen_ : int
+    fit_warnings_ : list of str
 
     See Also
     --------
@@ -72,32 +85,59 @@ class HessianDirections(MomentEstimator):
         "residuals": ["boolean"],
     }
     _accepts_labels = False
+    _weights_rows_by_response = True
     _dim_rules = frozenset({"chi2", "permutation", "ladle", "cv"})
     _default_dim_rule = "chi2"
 
     def __init__(self, dim=2, dim_rule=None, residuals=False,
-                 rank_tolerance=DEFAULT_RANK_TOLERANCE):
+                 rank_tolerance=DEFAULT_RANK_TOLERANCE, random_state=None):
         self.dim = dim
         self.dim_rule = dim_rule
         self.residuals = residuals
         self.rank_tolerance = rank_tolerance
+        self.random_state = random_state
 
-    def _method_matrix(self, X, y, whitening):
-        weights = y - y.mean()
-        if np.all(weights == 0):
+    _response_moments = True
+
+    def _statistics(self, X, y, weights) -> MomentStatistics:
+        statistics = super()._statistics(X, y, weights)
+        _refuse_constant_response(statistics)
+        if not self.residuals:
+            return statistics
+        # second pass: co-moments of the OLS residuals, about centres known from the first
+        slope, centre = self.residual_slope(statistics)
+        scaled = X if np.all(statistics.column_scale == 1.0) else X / statistics.column_scale
+        residuals = y - scaled @ slope
+        return statistics.with_residuals(ResponseMoments.about(
+            scaled, residuals, weights, statistics.mean, centre))
+
+    def residual_slope(self, statistics: MomentStatistics) -> tuple[np.ndarray, float]:
+        """OLS slope ``Σ^+ Cov(x, y)`` (rescaled columns) and the mean residual ``ȳ - mean·slope``.
+
+        ``Σ^+`` is the pseudo-inverse of the covariance on its
+        well-conditioned part, ``W^T W`` with the whitening ``W``.
+        """
+        whitening = Whitening.from_moments(statistics.mean, statistics.covariance,
+                                           self.rank_tolerance)
+        covariance_xy = statistics.response.cross / statistics.weight
+        slope = whitening.matrix.T @ (whitening.matrix @ covariance_xy)
+        return slope, statistics.response.response.raw_mean - statistics.mean @ slope
+
+    def _method_matrix(self, statistics, whitening, strict):
+        moments = statistics.residuals if self.residuals else statistics.response
+        _refuse_constant_response(statistics)
+        if self.residuals and moments.response.variance <= (
+                EXACT_FIT_TOLERANCE**2 * statistics.response.response.variance):
             raise ValueError(
-                "the response y is constant, so no direction can explain it; "
-                "check that the right target column was passed."
+                "the least-squares fit of y on X leaves no residual (y is a linear function "
+                "of X, or there are no more rows than columns), so residual-based pHd has "
+                "nothing to find; use residuals=False, or a linear model."
             )
-        if self.residuals:
-            # OLS slope Σ^+ Cov(x, y); Σ (y - ȳ) = 0 lets X stand in for X - mean
-            slope = whitening.matrix.T @ (whitening.matrix @ (X.T @ weights / X.shape[0]))
-            weights = weights - (X @ slope - whitening.mean @ slope)
-        self._weight_variance = float(np.mean(weights**2))
-        moment = centred_cross_product(X, whitening.mean, weights) / X.shape[0]
-        return whitening.whiten_moment(moment)
+        self._weight_variance = moments.response.variance
+        return whitening.whiten_moment(moments.weighted_scatter / statistics.weight)
 
-    def _chi_square_tests(self, X, y, weighted: bool) -> list[tuple[float, int, float]]:
+    def _chi_square_tests(self, X, y, weighted: bool,
+                          sample_weight=None) -> list[tuple[float, int, float]]:
         """Tests of ``dim = k``: ``n Σ_{j>k} λ_j^2 / (2 Var(w)) ~ χ²((r-k)(r-k+1)/2)``.
 
         ``w`` are the pHd weights (centred response or OLS residuals); valid
@@ -107,7 +147,7 @@ class HessianDirections(MomentEstimator):
             raise ValueError(
                 "the weighted chi-square rule exists for SIR only; use dim_rule='chi2'."
             )
-        n, rank = X.shape[0], self.whitening_.rank
+        n, rank = self.statistics_.weight, self.whitening_.rank
         squares = self.eigenvalues_[:rank] ** 2
         tests = []
         for k in range(rank):
@@ -119,3 +159,11 @@ class HessianDirections(MomentEstimator):
     @staticmethod
     def _order(values):
         return np.argsort(-np.abs(values), kind="stable")
+
+
+def _refuse_constant_response(statistics: MomentStatistics) -> None:
+    if statistics.response.response.second == 0:
+        raise ValueError(
+            "the response y is constant, so no direction can explain it; "
+            "check that the right target column was passed."
+        )

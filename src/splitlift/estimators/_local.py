@@ -20,11 +20,14 @@ from dataclasses import dataclass
 import numpy as np
 from sklearn.neighbors import NearestNeighbors
 
-from ..moments import CollinearityWarning, _is_discrete, _refuse_constant, slice_response
-
-#: A column whose standard deviation is below this multiple of its mean
-#: absolute level carries only round-off: it is treated as constant.
-CONSTANT_TOLERANCE = 1e-12
+from ..moments import (
+    CollinearityWarning,
+    _is_discrete,
+    _refuse_constant,
+    column_location_scale,
+    constant_columns,
+    slice_response,
+)
 
 #: Relative ridge added to the slope block of every local normal equation,
 #: as a fraction of that block's mean diagonal. It only matters when a
@@ -59,11 +62,10 @@ class Standardisation:
     kept: np.ndarray
 
     @classmethod
-    def fit(cls, X: np.ndarray) -> Standardisation:
-        """Estimate column means and standard deviations of ``X``."""
-        mean = X.mean(axis=0)
-        scale = X.std(axis=0)
-        kept = scale > CONSTANT_TOLERANCE * np.abs(mean)
+    def fit(cls, X: np.ndarray, sample_weight=None) -> Standardisation:
+        """Estimate column means and standard deviations of ``X`` (weighted when asked)."""
+        mean, scale = column_location_scale(X, sample_weight)
+        kept = ~constant_columns(mean, scale)
         if not kept.any():
             raise ValueError(
                 "every input column is constant, so there is no direction to estimate; "
@@ -88,13 +90,16 @@ class Standardisation:
         """Standardised kept columns, shape (n, rank)."""
         return (X[:, self.kept] - self.mean[self.kept]) / self.scale[self.kept]
 
-    def gradients_to_input(self, gradients: np.ndarray) -> np.ndarray:
-        """Map gradients over standardised kept columns (last axis) to input coordinates.
+    def directions_to_input(self, vectors: np.ndarray) -> np.ndarray:
+        """Map (rank, k) directions of standardised space to unit input directions (d, k).
 
-        By the chain rule ``∂f/∂x_j = (∂f/∂z_j) / scale_j``. The result keeps
-        only the kept columns; :meth:`embed` restores the dropped ones.
+        The summary ``v^T z`` equals ``(v / scale)^T x`` up to a constant, so
+        the input direction is ``v / scale``, normalised to unit length;
+        dropped (constant) columns get zero weight.
         """
-        return gradients / self.scale[self.kept]
+        directions = self.embed(vectors / self.scale[self.kept, None])
+        norms = np.linalg.norm(directions, axis=0)
+        return directions / np.where(norms > 0, norms, 1.0)
 
     def embed(self, vectors: np.ndarray) -> np.ndarray:
         """Place (rank, k) vectors over the kept columns into (d, k), zeros elsewhere."""
@@ -154,20 +159,38 @@ def neighbourhoods(
         yield rows, distances, indices
 
 
-def gaussian_weights(distances: np.ndarray, bandwidth: float | None) -> np.ndarray:
+def gaussian_weights(distances: np.ndarray, bandwidth: float | None,
+                     shares: np.ndarray | None = None) -> np.ndarray:
     """Gaussian kernel weights ``exp(-r^2 / (2 h^2))`` of neighbour distances.
 
     With ``bandwidth=None`` each anchor uses its own nearest-neighbour
     bandwidth, the distance to its farthest neighbour (so weights lie in
     ``[exp(-1/2), 1]``); a degenerate neighbourhood of duplicates gets equal
-    weights.
+    weights. With ``shares`` (see :func:`neighbour_shares`) the farthest
+    neighbour is the farthest with a positive share.
     """
     if bandwidth is None:
-        h = distances[:, -1:]
+        if shares is None:
+            h = distances[:, -1:]
+        else:
+            farthest = distances.shape[1] - 1 - np.argmax(shares[:, ::-1] > 0, axis=1)
+            h = distances[np.arange(distances.shape[0]), farthest][:, None]
         h = np.where(h > 0, h, 1.0)
     else:
         h = bandwidth
     return np.exp(-0.5 * (distances / h) ** 2)
+
+
+def neighbour_shares(weights: np.ndarray, n_neighbors: int) -> np.ndarray:
+    """Weight of each neighbour (nearest first) within ``n_neighbors`` units of weight.
+
+    Rows count their frequency weight, so ``n_neighbors`` nearest units are
+    the ``n_neighbors`` nearest rows of the repeated sample: the row that
+    crosses the total is counted in part, rows beyond it not at all. When
+    the rows given hold fewer units, all of them count fully.
+    """
+    before = np.cumsum(weights, axis=1) - weights
+    return np.clip(n_neighbors - before, 0.0, weights)
 
 
 def local_linear_gradients(

@@ -6,7 +6,7 @@ import numpy as np
 from scipy import stats
 
 from ..dimension import satterthwaite_p_value
-from ..moments import DEFAULT_RANK_TOLERANCE, _row_chunks, slice_covariances
+from ..moments import DEFAULT_RANK_TOLERANCE, _row_chunks
 from ._base import SlicedMomentEstimator
 
 
@@ -30,10 +30,20 @@ class SlicedInverse(SlicedMomentEstimator):
     slicing : {"auto", "count", "value"}, default "auto"
         How the response is sliced; see :func:`splitlift.moments.slice_response`.
         Class labels are always sliced by value.
+    slice_edges : array-like of shape (H - 1,), optional
+        Fixed interior cut points of a numeric response: slice ``h`` holds
+        ``slice_edges[h-1] <= y < slice_edges[h]`` (``n_slices`` is then
+        ignored). Use them to make :meth:`partial_fit` batches, Dask fits and
+        in-memory fits slice alike, e.g. the ``slice_edges_`` of an earlier
+        fit. Every slice must receive at least two rows.
     rank_tolerance : float, default 1e-10
         Relative eigenvalue tolerance of the input covariance: directions
         below it (constant or collinear columns) are left out of the
         estimate, with a :class:`~splitlift.moments.CollinearityWarning`.
+    random_state : int, RandomState instance or None, default None
+        Seeds the resampling of the ``dim="auto"`` rule (bootstrap,
+        permutations or folds) when the rule's own ``random_state`` is None,
+        so that one seed makes the whole fit reproducible.
 
     Attributes
     ----------
@@ -47,9 +57,18 @@ class SlicedInverse(SlicedMomentEstimator):
     n_slices_ : int
         Slices actually used (fewer than asked when ties merge slices or
         the response has few values).
+    slice_edges_ : ndarray or None
+        Interior edges of the slices used (None when sliced by value); pass
+        them as ``slice_edges`` to slice other data alike.
     whitening_ : splitlift.moments.Whitening
     method_matrix_ : ndarray
         ``Σ_h p_h m_h m_h^T`` in whitened coordinates.
+    statistics_ : splitlift.sufficient_statistics.MomentStatistics
+        The mergeable statistics the estimate was made from.
+    n_samples_seen_ : int
+        Rows (with positive weight) behind the estimate.
+    fit_warnings_ : list of str
+        Reasons to doubt the estimate (each also issued as a warning).
 
     See Also
     --------
@@ -85,21 +104,25 @@ class SlicedInverse(SlicedMomentEstimator):
     _dim_rules = frozenset({"chi2", "weighted_chi2", "permutation", "ladle", "cv"})
     _default_dim_rule = "chi2"
 
-    def __init__(self, n_slices=10, dim=2, dim_rule=None, slicing="auto",
-                 rank_tolerance=DEFAULT_RANK_TOLERANCE):
+    def __init__(self, n_slices=10, dim=2, dim_rule=None, slicing="auto", slice_edges=None,
+                 rank_tolerance=DEFAULT_RANK_TOLERANCE, random_state=None):
         self.n_slices = n_slices
         self.dim = dim
         self.dim_rule = dim_rule
         self.slicing = slicing
+        self.slice_edges = slice_edges
         self.rank_tolerance = rank_tolerance
+        self.random_state = random_state
 
-    def _method_matrix(self, X, y, whitening):
-        slices = self._slices(y)
-        means = (slices.means(X) - whitening.mean) @ whitening.matrix.T
-        self._slice_fit = (slices, means)
-        return (means * slices.proportions[:, None]).T @ means
+    def _method_matrix(self, statistics, whitening, strict):
+        slices = self._usable_slices(statistics, strict)
+        proportions = slices.weight / statistics.weight
+        means = statistics.deviations(slices) @ whitening.matrix.T
+        self._slice_fit = (proportions, means)
+        return (means * proportions[:, None]).T @ means
 
-    def _chi_square_tests(self, X, y, weighted: bool) -> list[tuple[float, int, float]]:
+    def _chi_square_tests(self, X, y, weighted: bool,
+                          sample_weight=None) -> list[tuple[float, int, float]]:
         """Sequential tests of ``dim = k`` for k = 0 .. min(r, H - 1) - 1.
 
         Unweighted: ``n Σ_{j>k} λ_j ~ χ²((r - k)(H - k - 1))`` for normal X
@@ -110,14 +133,16 @@ class SlicedInverse(SlicedMomentEstimator):
         slice-mean matrix beyond the first k and ``J_i`` is the slice
         indicator of row i.
         """
-        slices, means = self._slice_fit
-        n, rank, n_slices = X.shape[0], self.whitening_.rank, slices.n_slices
-        root_p = np.sqrt(slices.proportions)
+        proportions, means = self._slice_fit
+        n, rank, n_slices = self.statistics_.weight, self.whitening_.rank, proportions.size
+        root_p = np.sqrt(proportions)
         scaled = means.T * root_p  # (r, H); its squared singular values are the λ_j
         left, singular, right_t = np.linalg.svd(scaled, full_matrices=True)
         eigen = np.zeros(rank)
         eigen[: singular.size] = singular**2
-        Z = self.whitening_.transform(X) if weighted else None
+        if weighted:  # needs every row: its slice and whitened coordinates
+            labels = self.statistics_.scheme.labels(y)
+            Z = self.whitening_.transform(X / self.column_scale_)
         tests = []
         for k in range(min(rank, n_slices - 1)):
             statistic = float(n * eigen[k:].sum())
@@ -129,8 +154,8 @@ class SlicedInverse(SlicedMomentEstimator):
             projector = outside_right @ outside_right.T - np.outer(root_p, root_p)
             values, vectors = np.linalg.eigh(projector)
             psi = vectors[:, values > 0.5]  # (H, H - k - 1)
-            row_factor = psi[slices.labels] / root_p[slices.labels, None]
-            covariance = _kronecker_covariance(Z @ left[:, k:], row_factor)
+            row_factor = psi[labels] / root_p[labels, None]
+            covariance = _kronecker_covariance(Z @ left[:, k:], row_factor, sample_weight)
             weights = np.linalg.eigvalsh(covariance)
             tests.append((statistic, df, satterthwaite_p_value(statistic, weights)))
         return tests
@@ -148,14 +173,23 @@ class SlicedAverageVariance(SlicedMomentEstimator):
     dim_rule : {"permutation", "ladle", "cv"} or rule object, default None
         Rule for ``dim="auto"``; None means the ladle (Luo & Li 2016).
     slicing : {"auto", "count", "value"}, default "auto"
+    slice_edges : array-like of shape (H - 1,), optional
+        See :class:`SlicedInverse`.
     rank_tolerance : float, default 1e-10
         See :class:`SlicedInverse`.
+    random_state : int, RandomState instance or None, default None
+        Seeds the resampling of the ``dim="auto"`` rule (bootstrap,
+        permutations or folds) when the rule's own ``random_state`` is None,
+        so that one seed makes the whole fit reproducible.
 
     Attributes
     ----------
-    basis_, directions_, eigenvalues_, dim_, n_slices_, whitening_, method_matrix_
-        As for :class:`SlicedInverse`; the method matrix is
-        ``Σ_h p_h (I - V_h)^2``.
+    basis_, directions_, eigenvalues_, dim_, n_slices_, slice_edges_, whitening_
+        As for :class:`SlicedInverse`.
+    method_matrix_ : ndarray
+        ``Σ_h p_h (I - V_h)^2`` in whitened coordinates.
+    statistics_, n_samples_seen_, fit_warnings_
+        As for :class:`SlicedInverse`.
 
     See Also
     --------
@@ -187,31 +221,37 @@ class SlicedAverageVariance(SlicedMomentEstimator):
     2
     """
 
-    def __init__(self, n_slices=5, dim=2, dim_rule=None, slicing="auto",
-                 rank_tolerance=DEFAULT_RANK_TOLERANCE):
+    _slice_scatter = True
+
+    def __init__(self, n_slices=5, dim=2, dim_rule=None, slicing="auto", slice_edges=None,
+                 rank_tolerance=DEFAULT_RANK_TOLERANCE, random_state=None):
         self.n_slices = n_slices
         self.dim = dim
         self.dim_rule = dim_rule
         self.slicing = slicing
+        self.slice_edges = slice_edges
         self.rank_tolerance = rank_tolerance
+        self.random_state = random_state
 
-    def _method_matrix(self, X, y, whitening):
-        slices = self._slices(y)
-        covariances = np.stack(
-            [whitening.whiten_moment(c) for c in slice_covariances(X, slices, whitening.mean)]
-        )
-        deviations = np.eye(whitening.rank) - covariances
+    def _method_matrix(self, statistics, whitening, strict):
+        slices = self._usable_slices(statistics, strict)
+        # unbiased within-slice covariances (divisor n_h - 1; frequency weights)
+        covariances = slices.scatter / (slices.weight - 1)[:, None, None]
+        whitened = whitening.matrix @ covariances @ whitening.matrix.T
+        deviations = np.eye(whitening.rank) - whitened
         squared = deviations @ deviations
-        return np.tensordot(slices.proportions, squared, axes=1)
+        return np.tensordot(slices.weight / statistics.weight, squared, axes=1)
 
 
-def _kronecker_covariance(left: np.ndarray, right: np.ndarray) -> np.ndarray:
-    """Covariance of the rows ``left_i ⊗ right_i``, accumulated in row chunks."""
+def _kronecker_covariance(left: np.ndarray, right: np.ndarray, weights=None) -> np.ndarray:
+    """(Weighted) covariance of the rows ``left_i ⊗ right_i``, accumulated in row chunks."""
     width = left.shape[1] * right.shape[1]
     total, second = np.zeros(width), np.zeros((width, width))
     for rows in _row_chunks(left.shape[0], width):
         products = (left[rows, :, None] * right[rows, None, :]).reshape(-1, width)
-        total += products.sum(axis=0)
-        second += products.T @ products
-    mean = total / left.shape[0]
-    return second / left.shape[0] - np.outer(mean, mean)
+        weighted = products if weights is None else products * weights[rows, None]
+        total += weighted.sum(axis=0)
+        second += weighted.T @ products
+    count = left.shape[0] if weights is None else weights.sum()
+    mean = total / count
+    return second / count - np.outer(mean, mean)

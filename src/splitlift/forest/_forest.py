@@ -2,17 +2,20 @@
 
 A Mondrian process on ``z = A x`` is, seen in x-space, a STIT tessellation
 whose directional distribution has atoms ``±a_i/‖a_i‖`` with weights
-``‖a_i‖``. The estimators below average such random partitions.
+``‖a_i‖``. The estimators below average such random partitions; growth,
+routing and the choice of the lifetime run in compiled kernels
+(:mod:`splitlift.forest._compiled`).
 """
 
 from __future__ import annotations
 
+import warnings
 from numbers import Integral, Real
 
 import numpy as np
 from joblib import Parallel, delayed
+from scipy.spatial import cKDTree
 from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
-from sklearn.model_selection import KFold
 from sklearn.utils import check_random_state
 from sklearn.utils._param_validation import Interval, StrOptions
 from sklearn.utils.multiclass import check_classification_targets
@@ -20,27 +23,24 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 
 from .._validation import check_finite_matrix
 from ..lift import LiftMatrix
-from ._lifetime import N_FOLDS, lifetime_grid
-from ._tree import (
-    StitTree,
-    apply_tree,
-    grow_from_data,
-    node_statistics,
-    predict_along_lifetimes,
-    prune,
-)
+from . import _compiled
+from ._lifetime import lifetime_grid
+from ._lifting import Lifting, binary_exponent, times_power_of_two
+from ._tree import ForestArrays, StitTree, prune, tree_from_growth
 from ._window import grow_in_window, window_widths
 
 _SEED_BOUND = np.iinfo(np.int32).max
-# Trees are summed in batches of fixed size, so floating-point sums (and hence
-# every result) are the same for any n_jobs.
-_BATCH_SIZE = 8
 # A constant column of a data-derived window gets a side of this length.
 _FLAT_SIDE = 1.0
-
-
-def _batches(items: list, size: int = _BATCH_SIZE) -> list[list]:
-    return [items[start : start + size] for start in range(0, len(items), size)]
+# Query points are routed in blocks of this many, each through every tree in turn; a
+# point's sum over trees is then the same for any block size and any n_jobs.
+_BLOCK = 2048
+# Trees per batch when scoring lifetimes; fixed, so sums do not depend on n_jobs.
+_TREES_PER_BATCH = 8
+# Bytes of one batch's leave-one-out predictions (points x lifetimes x outputs).
+_TUNING_BYTES = 1 << 27
+# Points per leaf of the k-d ordering that keeps a cell's training points close in memory.
+_LOCALITY_LEAF = 32
 
 
 class _StitForest(BaseEstimator):
@@ -75,33 +75,6 @@ class _StitForest(BaseEstimator):
         self.n_jobs = n_jobs
 
     # ------------------------------------------------------------ input checks
-    def _check_lift(self, n_features: int) -> np.ndarray:
-        if self.lift is None:
-            return np.eye(n_features)
-        if isinstance(self.lift, LiftMatrix):
-            matrix = np.array(self.lift.matrix)
-        else:
-            matrix = check_finite_matrix(self.lift, "lift")
-        if matrix.shape[1] != n_features:
-            raise ValueError(
-                f"lift has {matrix.shape[1]} columns but X has {n_features} features; pass a "
-                f"(n_directions, {n_features}) matrix whose rows are directions in input "
-                "coordinates."
-            )
-        norms = np.linalg.norm(matrix, axis=1)
-        if np.any(norms == 0):
-            raise ValueError(
-                f"lift row {int(np.argmin(norms))} is zero; every row must be a direction."
-            )
-        rank = int(np.linalg.matrix_rank(matrix))
-        if rank < n_features:
-            raise ValueError(
-                f"lift has rank {rank} < {n_features} features, so cells would be unbounded "
-                "along its null space; add directions spanning the rest of the space (for "
-                "instance LiftMatrix.from_subspace with complement_weight > 0)."
-            )
-        return matrix
-
     def _check_window(self, X: np.ndarray) -> np.ndarray | None:
         if self.extent == "data":
             if self.window is not None:
@@ -141,109 +114,167 @@ class _StitForest(BaseEstimator):
         if self.lifetime == "auto":
             return None
         if self.extent == "window" and np.isinf(self.lifetime):
-            raise ValueError(
-                "lifetime=np.inf never stops in a window, whose cells do not run out of "
-                "points; give a finite lifetime, lifetime='auto', or use extent='data'."
-            )
+            raise ValueError(_NEVER_STOPS)
         return float(self.lifetime)
 
     # ------------------------------------------------------------------ fitting
     def _fit_targets(self, X: np.ndarray, targets: np.ndarray):
-        matrix = self._check_lift(X.shape[1])
+        lifting = Lifting(self.lift, X.shape[1])
         window = self._check_window(X)
         lifetime = self._check_lifetime()
-        lifted = X @ matrix.T
-        rng = check_random_state(self.random_state)
-        seeds = list(rng.randint(_SEED_BOUND, size=self.n_trees))
-
-        self.lift_matrix_ = matrix
-        self.window_ = window
-        self.lifetime_grid_ = self.lifetime_path_ = None
+        lifted = lifting(X)
+        seeds = check_random_state(self.random_state).randint(_SEED_BOUND, size=self.n_trees)
+        # the directions in input coordinates: z(x) = linear @ (x - center) + lifted_center
         if window is None:
-            if lifetime is None:
-                lifetime = self._tune_on_data(lifted, targets, rng)
-            trees = self._parallel(_grow_data_batch, lifted, targets, lifetime, seeds,
-                                   prefer="processes")
+            center, steps = (X.max(axis=0) + X.min(axis=0)) / 2, np.ptp(X, axis=0) / 2
         else:
-            if lifetime is None:
-                grid = lifetime_grid(
-                    float(window_widths(matrix, window[0], window[1]).sum()),
-                    *X.shape, "window",
-                )
-                partitions = self._parallel(_grow_window_batch, matrix, window, grid[-1], seeds,
-                                            prefer="processes")
-                lifetime = self._tune_in_window(partitions, lifted, targets, grid, rng)
-                partitions = [prune(tree, lifetime) for tree in partitions]
-            else:
-                partitions = self._parallel(_grow_window_batch, matrix, window, lifetime, seeds,
-                                            prefer="processes")
-            trees = self._parallel(_fill_batch, lifted, targets, partitions)
-        self.lifetime_ = float(lifetime)
-        self.trees_ = trees
-        self.n_leaves_ = np.array([tree.n_leaves for tree in trees])
+            center, steps = (window[0] + window[1]) / 2, (window[1] - window[0]) / 2
+        linear, lifted_center = lifting.affine_form(center, np.where(steps > 0, steps, 1.0))
+        if window is None:
+            trees, exponent, grid, path = self._grow_on_data(lifted, targets, lifetime, seeds)
+        else:
+            trees, exponent, grid, path = self._grow_in_window(
+                linear, lifted_center, steps, lifted, targets, lifetime, seeds)
+        self.lift_matrix_ = linear
+        self._lifting = lifting
+        self._forest = ForestArrays(trees, clock_exponent=exponent)
+        self.window_ = window
+        self.lifetime_grid_ = None if grid is None else np.ldexp(grid, -exponent)
+        self.lifetime_path_ = path
+        if lifetime is None:
+            chosen = self._forest.lifetimes[0]
+            self.lifetime_ = float(chosen)
+            _warn_if_out_of_range(self.lifetime_, float(np.ldexp(chosen, exponent)), exponent)
+        else:
+            self.lifetime_ = lifetime
+        self.n_leaves_ = self._forest.n_leaves()
         return self
 
-    def _parallel(self, batch_function, *args, prefer: str = "threads") -> list:
-        """Run ``batch_function`` over fixed-size batches of the last argument, in order.
+    def _grow_on_data(self, lifted, targets, lifetime, seeds):
+        """Trees grown on the data's extent, on a rescaled clock; with the tuning path."""
+        n_samples = lifted.shape[0]
+        exponent = binary_exponent(float(np.max(np.abs(lifted))))
+        rescaled = times_power_of_two(lifted, -exponent)
+        order = _locality_order(rescaled)  # keeps each cell's points close in memory
+        rows = np.ascontiguousarray(rescaled[order])
+        columns = np.ascontiguousarray(rows.T)
+        targets = np.ascontiguousarray(targets[order])
+        root_rate = float(np.ptp(rows, axis=0).sum())
+        tuning = lifetime is None and root_rate > 0 and n_samples > 1
+        grid = lifetime_grid(root_rate, n_samples, rows.shape[1], "data") if tuning else None
+        if lifetime is None:
+            grow_to = np.inf  # the grid ends at inf; without tuning every lifetime is alike
+        else:
+            grow_to = float(np.ldexp(lifetime, exponent))
+        grown = self._parallel(_grow_data_batch, rows, columns, targets, grow_to, exponent,
+                               seeds)
+        trees = [tree for tree, _ in grown]
+        if not tuning:
+            return trees, exponent, None, None
+        chosen, path = self._tune(trees, [leaves for _, leaves in grown], targets, grid)
+        return [prune(tree, chosen) for tree in trees], exponent, grid, path
 
-        Growth holds the GIL (segment reductions) and runs in processes;
-        routing mostly releases it and runs in threads, which avoids copying
-        the trees.
+    def _grow_in_window(self, linear, lifted_center, half, lifted, targets, lifetime, seeds):
+        """The exact STIT partitions of the window, filled with the training points.
+
+        ``half`` holds the window's half sides; its centre is lifted to
+        ``lifted_center`` and ``linear`` maps input offsets from the centre.
         """
-        *shared, items = args
+        # grow in the centred window divided by 2**side_exponent, with normals divided by
+        # 2**normal_exponent; both powers of two, so widths and times stay in range
+        side_exponent = binary_exponent(float(half.max()))
+        normal_exponent = binary_exponent(float(np.max(np.abs(linear))))
+        exponent = side_exponent + normal_exponent
+        normals = np.ldexp(linear, -normal_exponent)
+        upper = np.ldexp(half, -side_exponent)
+        grid = path = None
+        if lifetime is None:
+            root_rate = float(window_widths(normals, -upper, upper).sum())
+            grid = lifetime_grid(root_rate, lifted.shape[0], linear.shape[1], "window")
+            grow_to = grid[-1]
+        else:
+            grow_to = float(np.ldexp(lifetime, exponent))
+            if np.isinf(grow_to):
+                raise ValueError(_NEVER_STOPS)
+        partitions = self._parallel(_grow_window_batch, normals, upper, grow_to, exponent,
+                                    lifted_center, seeds, prefer="processes")
+        leaves = ForestArrays(partitions).apply(lifted)
+        leaves = [np.ascontiguousarray(leaves[:, k]) for k in range(len(partitions))]
+        trees = [_filled(tree, leaves[k], targets) for k, tree in enumerate(partitions)]
+        if lifetime is None:
+            if lifted.shape[0] < 2:
+                chosen, path = grid[0], None  # one point: every cell predicts the same value
+            else:
+                chosen, path = self._tune(trees, leaves, targets, grid)
+            trees = [prune(tree, chosen) for tree in trees]
+        return trees, exponent, grid, path
+
+    def _tune(self, trees: list[StitTree], leaves: list[np.ndarray], targets, grid):
+        """The grid lifetime with the smallest leave-one-out error, and the error path.
+
+        Trees are summed in batches of fixed size, in order, so the path is
+        the same for any ``n_jobs``.
+        """
+        n_samples, n_outputs = targets.shape
+        # outputs in groups, so that one batch's predictions stay within _TUNING_BYTES
+        group = max(1, _TUNING_BYTES // (8 * n_samples * grid.size))
+        errors = np.zeros(grid.size)
+        for first in range(0, n_outputs, group):
+            outputs = slice(first, first + group)
+            part = np.ascontiguousarray(targets[:, outputs])
+            batches = Parallel(n_jobs=self.n_jobs, prefer="threads", return_as="generator")(
+                delayed(_leave_one_out_batch)(trees[start : start + _TREES_PER_BATCH],
+                                              leaves[start : start + _TREES_PER_BATCH],
+                                              outputs, part, grid)
+                for start in range(0, len(trees), _TREES_PER_BATCH)
+            )
+            total = None
+            for batch in batches:
+                total = batch if total is None else total + batch
+            errors += ((total / len(trees) - part.T[:, None, :]) ** 2).sum(axis=(0, 2))
+        path = errors / n_samples
+        return float(grid[int(np.argmin(path))]), path
+
+    def _parallel(self, batch_function, *args, prefer: str = "threads") -> list:
+        """Run ``batch_function`` over batches of the seeds (the last argument), in order.
+
+        The compiled kernels release the GIL, so threads run them in
+        parallel; window growth is Python and runs in processes.
+        """
+        *shared, seeds = args
+        n_batches = min(len(seeds), 4 * max(1, _effective_jobs(self.n_jobs)))
+        batches = [list(batch) for batch in np.array_split(np.asarray(seeds), n_batches)]
         results = Parallel(n_jobs=self.n_jobs, prefer=prefer)(
-            delayed(batch_function)(*shared, batch) for batch in _batches(list(items))
+            delayed(batch_function)(*shared, batch) for batch in batches
         )
         return [item for batch in results for item in batch]
 
-    def _folds(self, n_samples: int, rng) -> list:
-        seed = rng.randint(_SEED_BOUND)
-        splitter = KFold(min(N_FOLDS, n_samples), shuffle=True, random_state=seed)
-        return list(splitter.split(np.zeros((n_samples, 1))))
-
-    def _tune_on_data(self, lifted, targets, rng) -> float:
-        n_samples = lifted.shape[0]
-        root_rate = float(np.ptp(lifted, axis=0).sum())
-        if root_rate == 0 or n_samples < 2:
-            return np.inf  # every lifetime gives the same single cell
-        grid = lifetime_grid(root_rate, n_samples, lifted.shape[1], "data")
-        errors = np.zeros(grid.size)
-        for train, test in self._folds(n_samples, rng):
-            seeds = list(rng.randint(_SEED_BOUND, size=self.n_trees))
-            sums = Parallel(n_jobs=self.n_jobs, prefer="processes")(
-                delayed(_grid_predictions_of_grown)(
-                    lifted[train], targets[train], lifted[test], grid, batch
-                )
-                for batch in _batches(seeds)
-            )
-            errors += _squared_errors(sum(sums) / self.n_trees, targets[test])
-        return self._record_path(grid, errors / n_samples)
-
-    def _tune_in_window(self, partitions, lifted, targets, grid, rng) -> float:
-        n_samples = lifted.shape[0]
-        if n_samples < 2:
-            return float(grid[0])  # one point: every cell predicts the same value
-        errors = np.zeros(grid.size)
-        for train, test in self._folds(n_samples, rng):
-            sums = Parallel(n_jobs=self.n_jobs, prefer="processes")(
-                delayed(_grid_predictions_of_partitions)(
-                    batch, lifted[train], targets[train], lifted[test], grid
-                )
-                for batch in _batches(partitions)
-            )
-            errors += _squared_errors(sum(sums) / self.n_trees, targets[test])
-        return self._record_path(grid, errors / n_samples)
-
-    def _record_path(self, grid: np.ndarray, errors: np.ndarray) -> float:
-        self.lifetime_grid_ = grid
-        self.lifetime_path_ = errors
-        return float(grid[int(np.argmin(errors))])
-
     # ---------------------------------------------------------------- routing
+    @property
+    def trees_(self) -> list[StitTree]:
+        check_is_fitted(self)
+        return self._forest.trees()
+
     def _lifted(self, X) -> np.ndarray:
         check_is_fitted(self)
         X = validate_data(self, X, dtype=np.float64, reset=False)
-        return X @ self.lift_matrix_.T
+        return np.require(self._lifting(X), requirements=["C", "W"])
+
+    def _in_blocks(self, method: str, lifted: np.ndarray) -> np.ndarray:
+        """``ForestArrays.<method>`` over blocks of points, in k-d order.
+
+        Neighbouring points share most of their paths, so routing them one
+        after the other keeps those tree nodes in the cache.
+        """
+        order = _locality_order(lifted)
+        rows = np.ascontiguousarray(lifted[order])
+        parts = Parallel(n_jobs=self.n_jobs, prefer="threads")(
+            delayed(getattr(self._forest, method))(rows[first : first + _BLOCK])
+            for first in range(0, rows.shape[0], _BLOCK)
+        )
+        result = np.empty((rows.shape[0], parts[0].shape[1]), dtype=parts[0].dtype)
+        result[order] = np.concatenate(parts)
+        return result
 
     def apply(self, X) -> np.ndarray:
         """Leaf of every point in every tree.
@@ -258,64 +289,91 @@ class _StitForest(BaseEstimator):
             Node ids of the leaves, in each tree's own numbering (see
             :class:`StitTree`).
         """
-        lifted = self._lifted(X)
-        leaves = self._parallel(_apply_batch, lifted, self.trees_)
-        return np.column_stack(leaves)
+        return self._in_blocks("apply", self._lifted(X)).astype(np.intp)
 
     def _mean_prediction(self, X) -> np.ndarray:
-        lifted = self._lifted(X)
-        sums = Parallel(n_jobs=self.n_jobs, prefer="threads")(
-            delayed(_value_sum)(batch, lifted) for batch in _batches(self.trees_)
+        return self._in_blocks("value_sum", self._lifted(X)) / self._forest.n_trees
+
+
+_NEVER_STOPS = (
+    "lifetime=np.inf never stops in a window, whose cells do not run out of points; give a "
+    "finite lifetime (at most about 1e300 times the window's size), lifetime='auto', or "
+    "use extent='data'."
+)
+
+
+def _locality_order(points: np.ndarray) -> np.ndarray:
+    """A permutation listing the points leaf by leaf of a k-d tree (scipy's cKDTree)."""
+    if points.shape[0] <= _LOCALITY_LEAF:
+        return np.arange(points.shape[0])
+    return cKDTree(points, leafsize=_LOCALITY_LEAF, balanced_tree=False, compact_nodes=False,
+                   copy_data=False).indices
+
+
+def _effective_jobs(n_jobs) -> int:
+    from joblib import effective_n_jobs
+
+    return effective_n_jobs(n_jobs)
+
+
+def _warn_if_out_of_range(lifetime: float, rescaled: float, exponent: int) -> None:
+    """Say so when the chosen lifetime is not a normal double in the data's units."""
+    if lifetime == 0 or not np.isfinite(lifetime) or abs(lifetime) < np.finfo(float).tiny:
+        if np.isinf(rescaled):
+            return  # full growth: inf is exact
+        warnings.warn(
+            f"the chosen lifetime is {rescaled:.6g} × 2**{-exponent} in the units of the "
+            f"lifted data, which is {lifetime!r} as a double: outside the normal range at "
+            "this data scale. The forest keeps its clock on data rescaled by a power of two, "
+            "so its partitions and predictions are exact; only lifetime_ and "
+            "lifetime_grid_ are rounded. Rescale X towards unit size to read them exactly.",
+            UserWarning, stacklevel=4,
         )
-        return sum(sums) / len(self.trees_)
 
 
 # ---------------------------------------------------------------- batch workers
-def _grow_data_batch(lifted, targets, lifetime, seeds) -> list[StitTree]:
-    return [grow_from_data(lifted, targets, lifetime, np.random.default_rng(s)) for s in seeds]
-
-
-def _grow_window_batch(matrix, window, lifetime, seeds) -> list[StitTree]:
-    return [
-        grow_in_window(matrix, window[0], window[1], lifetime, np.random.default_rng(s))
-        for s in seeds
-    ]
-
-
-def _fill_batch(lifted, targets, partitions) -> list[StitTree]:
-    return [tree.with_statistics(*node_statistics(tree, lifted, targets)) for tree in partitions]
-
-
-def _apply_batch(lifted, trees) -> list[np.ndarray]:
-    return [apply_tree(tree, lifted) for tree in trees]
-
-
-def _value_sum(trees, lifted) -> np.ndarray:
-    total = 0.0
-    for tree in trees:
-        total = total + tree.value[apply_tree(tree, lifted)]
-    return total
-
-
-def _grid_predictions_of_grown(train, train_targets, test, grid, seeds) -> np.ndarray:
-    total = 0.0
+def _grow_data_batch(rows, columns, targets, lifetime, exponent, seeds):
+    """Grown trees (offsets in lifted units, times on the rescaled clock), with leaves."""
+    grown = []
     for seed in seeds:
-        tree = grow_from_data(train, train_targets, grid[-1], np.random.default_rng(seed))
-        total = total + predict_along_lifetimes(tree, test, grid)
+        routing, parent, split_time, leaf_of_point = _compiled.grow_from_data(
+            rows, columns, lifetime, seed, exponent)
+        counts, sums = _compiled.node_sums(parent, leaf_of_point, targets)
+        tree = tree_from_growth(routing, parent, split_time, counts, sums, lifetime)
+        grown.append((tree, leaf_of_point))
+    return grown
+
+
+def _grow_window_batch(normals, upper, lifetime, exponent, lifted_center, seeds):
+    """Window partitions (offsets in lifted units, times on the rescaled clock), unfilled."""
+    partitions = []
+    for seed in seeds:
+        nodes = grow_in_window(normals, -upper, upper, lifetime, np.random.default_rng(seed))
+        direction = nodes["direction"]
+        offset = np.ldexp(nodes["offset"], exponent) + lifted_center[np.maximum(direction, 0)]
+        routing = _compiled.routing_records(direction, offset, nodes["left"], 0)
+        n_nodes = direction.size
+        partitions.append(tree_from_growth(
+            routing, nodes["parent"], nodes["split_time"], np.zeros(n_nodes, np.int32),
+            np.zeros((n_nodes, 0)), lifetime))
+    return partitions
+
+
+def _leave_one_out_batch(trees, leaves, outputs, targets, grid):
+    total = np.zeros((targets.shape[1], grid.size, targets.shape[0]))
+    scratch = np.empty_like(total)
+    for tree, leaf_of_point in zip(trees, leaves, strict=True):
+        value = np.ascontiguousarray(tree.value[:, outputs])
+        _compiled.add_leave_one_out(tree.routing, tree.parent, tree.split_time,
+                                    tree.n_node_samples, value, leaf_of_point, targets, grid,
+                                    total, scratch)
     return total
 
 
-def _grid_predictions_of_partitions(partitions, train, train_targets, test, grid):
-    total = 0.0
-    for tree in partitions:
-        filled = tree.with_statistics(*node_statistics(tree, train, train_targets))
-        total = total + predict_along_lifetimes(filled, test, grid)
-    return total
-
-
-def _squared_errors(predictions: np.ndarray, targets: np.ndarray) -> np.ndarray:
-    """Summed squared error per lifetime; predictions (n, n_lifetimes, n_outputs)."""
-    return ((predictions - targets[:, None, :]) ** 2).sum(axis=(0, 2))
+def _filled(tree: StitTree, leaf_of_point: np.ndarray, targets: np.ndarray) -> StitTree:
+    counts, sums = _compiled.node_sums(tree.parent, leaf_of_point, targets)
+    return tree_from_growth(tree.routing, tree.parent, tree.split_time, counts, sums,
+                            tree.lifetime)
 
 
 _SHARED_PARAMETERS = """

@@ -16,8 +16,6 @@ from collections import deque
 import numpy as np
 from scipy.optimize import linprog
 
-from ._tree import StitTree, _draw_directions
-
 # Largest vertex list kept per cell; beyond it the cell falls back to LP.
 VERTEX_LIMIT = 512
 
@@ -130,7 +128,7 @@ def grow_in_window(
     lifetime: float,
     rng: np.random.Generator,
     max_nodes: int = 200_000,
-) -> StitTree:
+) -> dict[str, np.ndarray]:
     """Grow the STIT tessellation of the window ``[lower, upper]`` up to ``lifetime``.
 
     Parameters
@@ -146,9 +144,10 @@ def grow_in_window(
 
     Returns
     -------
-    StitTree
-        With zero counts and no values; fill them from data with
-        :meth:`StitTree.with_statistics`.
+    dict
+        Node arrays ``direction``, ``offset``, ``left`` (the right child is
+        ``left + 1``), ``parent`` and ``split_time``, in the layout of
+        :class:`~splitlift.forest.StitTree`.
 
     Notes
     -----
@@ -156,8 +155,7 @@ def grow_in_window(
     t: wait an exponential time of rate ``Σ_i width_i(C)``; if the cut time
     exceeds λ the cell is final, otherwise cut it along direction i with
     probability ∝ ``width_i(C)`` at an offset uniform over that width, and
-    treat both halves the same way. Cells are processed breadth first, so
-    node ids match those of :func:`grow_from_data`.
+    treat both halves the same way. Cells are processed breadth first.
 
     References
     ----------
@@ -166,22 +164,22 @@ def grow_in_window(
     Advances in Applied Probability 37, 859-883.
     """
     records: dict[str, list] = {key: [] for key in (
-        "direction", "offset", "left", "right", "parent", "depth", "birth_time", "split_time"
+        "direction", "offset", "left", "parent", "split_time"
     )}
-    queue = deque([(WindowCell.box(lower, upper), -1, 0.0, 0)])
+    queue = deque([(WindowCell.box(lower, upper), -1, 0.0)])
     next_id = 1
     while queue:
-        cell, parent, birth, depth = queue.popleft()
+        cell, parent, birth = queue.popleft()
         low, high = cell.extent(directions)
         widths = np.maximum(high - low, 0.0)
         rate = widths.sum()
         split_time = birth + rng.standard_exponential() / rate if rate > 0 else np.inf
-        direction, offset, left, right = -1, np.nan, -1, -1
+        direction, offset, left = -1, np.nan, -1
         if split_time <= lifetime:
-            direction = int(_draw_directions(widths[None, :], np.array([rate]), rng)[0])
+            direction = _draw_direction(widths, rate, rng)
             offset = low[direction] + rng.random() * widths[direction]
             offset = offset if offset < high[direction] else low[direction]
-            left, right = next_id, next_id + 1
+            left = next_id
             next_id += 2
             if next_id > max_nodes:
                 raise ValueError(
@@ -190,25 +188,23 @@ def grow_in_window(
                 )
             node = len(records["direction"])
             halves = cell.split(directions[direction], offset)
-            queue.append((halves[0], node, split_time, depth + 1))
-            queue.append((halves[1], node, split_time, depth + 1))
+            queue.append((halves[0], node, split_time))
+            queue.append((halves[1], node, split_time))
         else:
             split_time = np.inf
         for key, item in (
-            ("direction", direction), ("offset", offset), ("left", left), ("right", right),
-            ("parent", parent), ("depth", depth), ("birth_time", birth),
+            ("direction", direction), ("offset", offset), ("left", left), ("parent", parent),
             ("split_time", split_time),
         ):
             records[key].append(item)
-    n_nodes = len(records["direction"])
-    arrays = {
-        key: np.asarray(values, dtype=float if key in ("offset", "birth_time", "split_time")
-                        else np.intp)
+    return {
+        key: np.asarray(values, dtype=float if key in ("offset", "split_time") else np.int32)
         for key, values in records.items()
     }
-    return StitTree(
-        **arrays,
-        n_node_samples=np.zeros(n_nodes, dtype=np.intp),
-        value=np.zeros((n_nodes, 0)),
-        lifetime=float(lifetime),
-    )
+
+
+def _draw_direction(widths: np.ndarray, rate: float, rng: np.random.Generator) -> int:
+    """An index drawn with probability proportional to the widths."""
+    chosen = int(np.count_nonzero(np.cumsum(widths) <= rng.random() * rate))
+    # rounding can push the target to the total: take the last positive width then
+    return min(chosen, int(np.flatnonzero(widths > 0)[-1]))

@@ -1,0 +1,586 @@
+"""Compiled kernels of the STIT forest: growth from data, routing, node statistics, scoring.
+
+Every kernel is compiled once by numba and cached on disk (``cache=True``),
+so a fresh process loads machine code instead of compiling again. Kernels
+release the GIL (``nogil=True``); the estimators run them in joblib threads.
+
+Trees are flat arrays over node ids. A node's two children are consecutive
+(``right = left + 1``) and every child has a larger id than its parent, so
+bottom-up sums run over ids in reverse and top-down fills in order. A
+forest is the concatenation of its trees' arrays; ``tree_start[t]`` is the
+first row of tree ``t`` and child and parent ids stay local to their tree.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+# Cells with at most this many points measure their exact extent along every
+# direction at once (m × count reads); larger cells keep a stale box and tighten
+# it one direction at a time, only when a proposed cut misses their points.
+EXACT_EXTENT_BELOW = 8
+# A cell whose lifted values fit in this many bytes is grown from a compact copy
+# of its points, so the passes over its columns stay in the core's cache.
+LOCAL_CELL_BYTES = 1 << 18
+
+
+#: One routing record per node, 16 bytes, so a step down the tree reads one cache line. A
+#: leaf points to itself (``left`` = its own id, ``offset`` = +inf), so a step from a leaf
+#: stays there and points can move down in lockstep without testing for leaves.
+ROUTING_RECORD = np.dtype([("offset", np.float64), ("left", np.int32), ("direction", np.int32)])
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _set_logged(box, position, value, log_position, log_value, log_length):
+    """``box[position] = value``, remembering the old value; returns the new log length.
+
+    The caller keeps room in the log (see ``_with_room``).
+    """
+    if box[position] == value:
+        return log_length
+    log_position[log_length] = position
+    log_value[log_length] = box[position]
+    box[position] = value
+    return log_length + 1
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _partition(columns, direction, orders, buffer, start, end, cut):
+    """One branch-free pass over the cell ``orders[buffer, start:end]`` along a column.
+
+    Writes the points with ``value <= cut`` to the front and the others to
+    the back of the same range in the other row of ``orders``; returns the
+    number on the left and the extent (lowest, highest) along the column.
+    Unsigned indices spare numba's negative-index checks in this, the
+    hottest loop.
+    """
+    source, target = np.uint64(buffer), np.uint64(1 - buffer)
+    column = np.uint64(direction)
+    front, back = np.uint64(start), np.uint64(end - 1)
+    lowest, highest = np.inf, -np.inf
+    for position in range(np.uint64(start), np.uint64(end)):
+        point = orders[source, position]
+        value = columns[column, point]
+        lowest = min(lowest, value)
+        highest = max(highest, value)
+        goes_left = value <= cut
+        orders[target, front] = point
+        orders[target, back] = point
+        front += np.uint64(goes_left)
+        back -= np.uint64(not goes_left)
+    return np.int64(front) - start, lowest, highest
+
+
+@njit(cache=True, nogil=True)
+def grow_from_data(rows, columns, lifetime, seed, exponent):
+    """Grow one Mondrian tree whose cells use the extent of their training points.
+
+    Parameters
+    ----------
+    rows : ndarray of shape (n, m), C order
+        Lifted training points.
+    columns : ndarray of shape (m, n), C order
+        The same values, one lifted direction per row (``rows.T`` copied).
+    lifetime : float
+        Lifetime in the units of ``rows``; ``inf`` grows until every leaf
+        holds one distinct point.
+    seed : int
+        Seeds the random stream of the thread that grows the tree, so the
+        tree depends on the seed alone.
+    exponent : int
+        The offsets are recorded multiplied by ``2**exponent``: in the units
+        of the lifted data when ``rows`` hold them divided by that power.
+
+    Returns
+    -------
+    records : ndarray of ROUTING_RECORD, shape (n_nodes,)
+    parent, split_time : node arrays
+    leaf_of_point : ndarray of int32, shape (n,)
+
+    Notes
+    -----
+    A cell with points ``Z_C`` must wait ``Exp(Σ_i w_i)`` with
+    ``w_i = max Z_C[:, i] - min Z_C[:, i]``, then be cut along i with
+    probability ``w_i / Σ w`` at a uniform offset in ``[min, max]``
+    (Lakshminarayanan, Roy & Teh 2014). Measuring all m widths costs
+    ``m × count`` reads per cell. Instead each cell keeps a box that
+    contains its points but may be larger (inherited from its parent), and
+    runs the Mondrian clock of that box: waiting time ``Exp(Σ box widths)``,
+    a direction ∝ box width and a uniform offset in the box. One pass over
+    that single lifted column tells whether the cut separates the cell's
+    points. If it does, it is the cell's cut. If it misses them, the box
+    side is tightened to the points' extent along that column and the clock
+    runs on. This is exact: a Mondrian process restricted to a sub-box is a
+    Mondrian process on that sub-box (Roy & Teh 2008), so proposals of the
+    larger box that fall outside the points' extent thin out to the process
+    of the extent itself. Cells of a few points measure their extent
+    exactly instead, which is cheaper than waiting for misses.
+
+    Growth runs depth first. The box lives in one array with an undo log,
+    so a child costs two logged writes instead of a copy. A cell much
+    smaller than the array it is read from is set aside and grown later
+    from a compact copy of its points, so passes stay within the cache.
+    """
+    m, n = columns.shape
+    # inside compiled code np.random is numba's own per-thread stream, not numpy's global
+    # state; seeding it here makes the tree a function of its seed alone (a Generator
+    # argument would cost half a second of typing at the first call of every process)
+    np.random.seed(seed)  # noqa: NPY002
+    capacity = 2 * n - 1
+    direction = np.full(capacity, -1, np.int32)
+    offset = np.full(capacity, np.nan)
+    left = np.full(capacity, -1, np.int32)
+    parent = np.full(capacity, -1, np.int32)
+    split_time = np.full(capacity, np.inf)
+    leaf_of_point = np.empty(n, np.int32)
+
+    box = np.empty(2 * m)  # box[k] is the lower and box[m + k] the upper end along k
+    for k in range(m):
+        low, high = columns[k, 0], columns[k, 0]
+        for i in range(1, n):
+            low = min(low, columns[k, i])
+            high = max(high, columns[k, i])
+        box[k], box[m + k] = low, high
+
+    local_limit = max(2, LOCAL_CELL_BYTES // (8 * m))
+    # cells waiting for their compact copy: node, birth, box and the training points
+    waiting_node = [0]
+    waiting_birth = [0.0]
+    waiting_box = [box.copy()]
+    waiting_points = [np.arange(n).astype(np.int32)]
+    n_nodes = 1
+    while len(waiting_node) > 0:
+        node = waiting_node.pop()
+        birth = waiting_birth.pop()
+        box[:] = waiting_box.pop()
+        points = waiting_points.pop()
+        count = points.size
+        if node == 0:
+            local_rows, local_columns = rows, columns
+        else:
+            # whole points are copied (contiguous), then transposed inside the cache
+            local_rows = np.empty((count, m))
+            for i in range(count):
+                point = points[i]
+                for k in range(m):
+                    local_rows[i, k] = rows[point, k]
+            local_columns = np.ascontiguousarray(local_rows.T)
+        orders = np.empty((2, count), np.uint32)
+        orders[0] = np.arange(count)
+        set_aside_at = local_limit if node == 0 else 0
+        n_nodes, set_aside, n_set_aside = _grow_subtree(
+            local_rows, local_columns, orders, points, node, birth, box, lifetime, set_aside_at,
+            direction, offset, left, parent, split_time, leaf_of_point, n_nodes)
+        for item in range(n_set_aside):
+            start, end = int(set_aside[item, 1]), int(set_aside[item, 2])
+            buffer = int(set_aside[item, 3])
+            waiting_node.append(int(set_aside[item, 0]))
+            waiting_birth.append(set_aside[item, 4])
+            waiting_box.append(set_aside[item, 5:].copy())
+            waiting_points.append(points[orders[buffer, start:end]])
+    return (routing_records(direction[:n_nodes], offset[:n_nodes], left[:n_nodes], exponent),
+            parent[:n_nodes].copy(), split_time[:n_nodes].copy(), leaf_of_point)
+
+
+@njit(cache=True, nogil=True)
+def routing_records(direction, offset, left, exponent):
+    """Routing records of a tree's nodes, offsets multiplied by ``2**exponent``."""
+    records = np.empty(direction.size, ROUTING_RECORD)
+    for node in range(direction.size):
+        if direction[node] < 0:
+            records[node].offset = np.inf
+            records[node].left = node
+            records[node].direction = 0
+        else:
+            records[node].offset = np.ldexp(offset[node], exponent)
+            records[node].left = left[node]
+            records[node].direction = direction[node]
+    return records
+
+
+# what stopped _grow_cells: the subtree is done, or an array needs more room
+_DONE, _LOG_FULL, _SET_ASIDE_FULL = 0, 1, 2
+
+
+@njit(cache=True, nogil=True)
+def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifetime,
+                  set_aside_at, direction, offset, left, parent, split_time, leaf_of_point,
+                  n_nodes):
+    """Grow the subtree of cell ``root``, which holds all of ``orders[0]``, depth first.
+
+    ``columns[:, i]`` are the lifted values of training point
+    ``point_ids[i]``; ``box`` holds the root's box on entry. Cells of at
+    most ``set_aside_at`` points (other than the root) are not grown but
+    returned as rows ``(node, start, end, row of orders, birth, box...)``.
+    Returns the new node count, those rows and their number.
+    """
+    m = columns.shape[0]
+    size = orders.shape[1] + 1
+    stack_index = np.empty((size, 6), np.int64)
+    stack_index[0] = (root, 0, orders.shape[1], 0, -1, 0)
+    stack_value = np.empty((size, 3))
+    stack_value[0] = (root_birth, 0.0, 0.0)
+    log_position = np.empty(16 * m + 16, np.int32)
+    log_value = np.empty(16 * m + 16)
+    set_aside = np.empty((16, 5 + 2 * m))
+    state = np.array([1, 0, n_nodes, 0])  # stack depth, log length, nodes, cells set aside
+    # growing an array inside the loop would cost reference counting on every step,
+    # so the loop stops when one is full and resumes after it has grown
+    while True:
+        status = _grow_cells(rows, columns, orders, point_ids, root, box, lifetime,
+                             set_aside_at, direction, offset, left, parent, split_time,
+                             leaf_of_point, stack_index, stack_value, log_position,
+                             log_value, set_aside, state)
+        if status == _DONE:
+            return state[2], set_aside, state[3]
+        if status == _LOG_FULL:
+            log_position = _doubled(log_position)
+            log_value = _doubled(log_value)
+        else:
+            set_aside = _doubled(set_aside)
+
+
+@njit(cache=True, nogil=True)
+def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside_at,
+                direction, offset, left, parent, split_time, leaf_of_point, stack_index,
+                stack_value, log_position, log_value, set_aside, state):
+    """The depth-first loop of :func:`_grow_subtree`; returns a status, saves ``state``.
+
+    A cell is a range of positions in one row of ``orders``; its split writes
+    the children's ranges into the other row, so nothing is copied back. A
+    pending cell is ``stack_index`` = (node, start, end, log mark, tightened
+    direction, row of orders) and ``stack_value`` = (birth, low, high): the
+    side along which its box is tighter than its parent's final box.
+    """
+    m = columns.shape[0]
+    depth, log_length, n_nodes, n_set_aside = state[0], state[1], state[2], state[3]
+    widths = np.empty(m)
+    lows = np.empty(m)
+    status = _DONE
+    while depth > 0:
+        depth -= 1
+        node, start, end = stack_index[depth, 0], stack_index[depth, 1], stack_index[depth, 2]
+        mark, tightened, buffer = (stack_index[depth, 3], stack_index[depth, 4],
+                                   stack_index[depth, 5])
+        clock, tight_low, tight_high = (stack_value[depth, 0], stack_value[depth, 1],
+                                        stack_value[depth, 2])
+        other = 1 - buffer
+        count = end - start
+        exact = count <= EXACT_EXTENT_BELOW
+        if not exact:
+            while log_length > mark:  # back to the parent's final box
+                log_length -= 1
+                box[log_position[log_length]] = log_value[log_length]
+            if log_length + 2 * m + 2 > log_position.size:
+                status = _LOG_FULL
+                depth += 1
+                break
+            if tightened >= 0:
+                log_length = _set_logged(box, tightened, tight_low, log_position, log_value,
+                                         log_length)
+                log_length = _set_logged(box, m + tightened, tight_high, log_position,
+                                         log_value, log_length)
+            if count <= set_aside_at and node != root:
+                if n_set_aside == set_aside.shape[0]:
+                    status = _SET_ASIDE_FULL
+                    depth += 1
+                    break
+                set_aside[n_set_aside, 0] = node
+                set_aside[n_set_aside, 1] = start
+                set_aside[n_set_aside, 2] = end
+                set_aside[n_set_aside, 3] = buffer
+                set_aside[n_set_aside, 4] = clock
+                for k in range(2 * m):
+                    set_aside[n_set_aside, 5 + k] = box[k]
+                n_set_aside += 1
+                continue
+        else:
+            # a few points: their exact widths cost less than waiting for misses
+            # (whole points from `rows`: m consecutive values each)
+            first_point = orders[buffer, start]
+            for k in range(m):
+                lows[k] = rows[first_point, k]
+                widths[k] = rows[first_point, k]
+            for position in range(start + 1, end):
+                point = orders[buffer, position]
+                for k in range(m):
+                    lows[k] = min(lows[k], rows[point, k])
+                    widths[k] = max(widths[k], rows[point, k])
+            for k in range(m):
+                widths[k] -= lows[k]
+
+        while True:
+            rate = 0.0
+            for k in range(m):
+                rate += widths[k] if exact else box[m + k] - box[k]
+            if not rate > 0.0:
+                break  # all points of the cell coincide
+            clock += np.random.standard_exponential() / rate  # noqa: NPY002
+            if clock > lifetime:
+                break
+            # one uniform point on the widths laid end to end picks the direction (∝ width)
+            # and, by where it falls inside that width, the uniform offset
+            target = np.random.random() * rate  # noqa: NPY002
+            chosen, total = -1, 0.0
+            for k in range(m):
+                width = widths[k] if exact else box[m + k] - box[k]
+                if width > 0.0:
+                    total += width
+                    chosen = k
+                    if target < total:
+                        break
+            # (rounding may leave the target at the very end: the last positive width)
+            low = lows[chosen] if exact else box[chosen]
+            width = widths[chosen] if exact else box[m + chosen] - low
+            cut = low + min(max(target - (total - width), 0.0), width)
+
+            n_left, lowest, highest = _partition(columns, chosen, orders, buffer, start, end,
+                                                 cut)
+            if n_left == 0 or n_left == count:
+                if not exact:
+                    # the cut misses the points: tighten this direction, the clock runs on
+                    log_length = _set_logged(box, chosen, lowest, log_position, log_value,
+                                             log_length)
+                    log_length = _set_logged(box, m + chosen, highest, log_position,
+                                             log_value, log_length)
+                continue  # (an exact cell misses only when rounding puts the cut on its end)
+
+            direction[node] = chosen
+            offset[node] = cut
+            left[node] = n_nodes
+            split_time[node] = clock
+            # the right child waits below the left one, which is grown next
+            for side in range(2):
+                child = n_nodes + 1 - side
+                first = start + n_left if side == 0 else start
+                stop = end if side == 0 else start + n_left
+                parent[child] = node
+                if stop - first == 1:  # one point: a leaf at once
+                    leaf_of_point[point_ids[orders[other, first]]] = child
+                    continue
+                stack_index[depth, 0] = child
+                stack_index[depth, 1] = first
+                stack_index[depth, 2] = stop
+                stack_index[depth, 3] = log_length
+                stack_index[depth, 4] = chosen
+                stack_index[depth, 5] = other
+                stack_value[depth, 0] = clock
+                # the cut bounds each child along the column (a box need not be tight)
+                stack_value[depth, 1] = cut if side == 0 else lowest
+                stack_value[depth, 2] = highest if side == 0 else cut
+                depth += 1
+            n_nodes += 2
+            break
+        if direction[node] < 0:
+            for position in range(start, end):
+                leaf_of_point[point_ids[orders[buffer, position]]] = node
+    state[0], state[1], state[2], state[3] = depth, log_length, n_nodes, n_set_aside
+    return status
+
+
+@njit(cache=True, nogil=True)
+def _doubled(array):
+    """A copy of ``array`` with twice the rows, the first half filled."""
+    grown = np.empty((2 * array.shape[0],) + array.shape[1:], array.dtype)
+    grown[: array.shape[0]] = array
+    return grown
+
+
+@njit(cache=True, nogil=True)
+def node_sums(parent, leaf_of_point, targets):
+    """Training points and target sums in every node, from the leaf each point ended in."""
+    n_nodes = parent.size
+    counts = np.zeros(n_nodes, np.int32)
+    sums = np.zeros((n_nodes, targets.shape[1]))
+    for i in range(leaf_of_point.size):
+        leaf = leaf_of_point[i]
+        counts[leaf] += 1
+        for k in range(targets.shape[1]):
+            sums[leaf, k] += targets[i, k]
+    for node in range(n_nodes - 1, 0, -1):  # children have larger ids than their parent
+        above = parent[node]
+        counts[above] += counts[node]
+        for k in range(targets.shape[1]):
+            sums[above, k] += sums[node, k]
+    return counts, sums
+
+
+@njit(cache=True, nogil=True)
+def node_means(parent, counts, sums):
+    """Mean target per node; an empty node takes the mean of its nearest non-empty ancestor."""
+    values = np.zeros(sums.shape)
+    for node in range(parent.size):  # parents come first
+        if counts[node] > 0:
+            for k in range(sums.shape[1]):
+                values[node, k] = sums[node, k] / counts[node]
+        elif node > 0:
+            values[node] = values[parent[node]]
+    return values
+
+
+# points routed together: their independent loads overlap in the memory system
+_LOCKSTEP = 8
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _route_group(rows, first, size, base, nodes, current):
+    """Move points ``first:first + size`` from the root to their leaves, in lockstep."""
+    for g in range(size):
+        current[g] = 0
+    moved = True
+    while moved:
+        moved = False
+        for g in range(size):
+            record = nodes[base + current[g]]
+            step = np.uint64(rows[np.uint64(first + g), np.uint64(record.direction)]
+                             > record.offset)
+            following = np.uint64(record.left) + step
+            moved |= following != current[g]
+            current[g] = following
+
+
+@njit(cache=True, nogil=True)
+def apply_forest(rows, tree_start, nodes, leaves):
+    """Leaf id (local to its tree) of every point in every tree, into ``leaves`` (n, n_trees)."""
+    current = np.zeros(_LOCKSTEP, np.uint64)
+    for tree in range(tree_start.size - 1):
+        base = np.uint64(tree_start[tree])
+        for first in range(0, rows.shape[0], _LOCKSTEP):
+            size = min(_LOCKSTEP, rows.shape[0] - first)
+            _route_group(rows, first, size, base, nodes, current)
+            for g in range(size):
+                leaves[first + g, tree] = current[g]
+
+
+@njit(cache=True, nogil=True)
+def add_leaf_values(rows, tree_start, nodes, value, total):
+    """Add every tree's leaf value for every point to ``total`` (n, n_outputs), tree by tree."""
+    current = np.zeros(_LOCKSTEP, np.uint64)
+    for tree in range(tree_start.size - 1):
+        base = np.uint64(tree_start[tree])
+        for first in range(0, rows.shape[0], _LOCKSTEP):
+            size = min(_LOCKSTEP, rows.shape[0] - first)
+            _route_group(rows, first, size, base, nodes, current)
+            for g in range(size):
+                for k in range(value.shape[1]):
+                    total[first + g, k] += value[base + current[g], k]
+
+
+@njit(cache=True, nogil=True)
+def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point, targets,
+                      grid, total, by_position):
+    """Add one tree's leave-one-out predictions of its training points at every lifetime.
+
+    Parameters
+    ----------
+    routing, parent, split_time, counts, value : node arrays of one tree
+    leaf_of_point : ndarray of int32, shape (n,)
+        Leaf of each training point in the (fully grown) tree.
+    targets : ndarray of shape (n, n_outputs)
+    grid : ndarray, ascending
+        Lifetimes, in the units of ``split_time``.
+    total : ndarray of shape (n_outputs, n_grid, n)
+        Accumulates the predictions (one row of points per output and
+        lifetime: the scatter below then stays within the cache).
+    by_position : ndarray of shape (n_outputs, n_grid, n)
+        Scratch space (every entry is written before it is read).
+
+    Notes
+    -----
+    A node is a leaf of the tree pruned at lifetime t exactly when
+    ``birth <= t < split`` (a Mondrian tree at a smaller lifetime is the
+    same tree pruned; Lakshminarayanan, Roy & Teh 2014), so every node
+    serves a run of grid lifetimes for all the points of its subtree. The
+    points are laid out so that every subtree is a contiguous run, and each
+    (point, lifetime) pair is then served exactly once. A point's
+    prediction in a cell leaves the point out, ``(sum - y_i) / (count - 1)``;
+    a cell holding only the point uses its nearest ancestor holding others.
+    """
+    n_nodes = parent.size
+    n_grid = grid.size
+    start = np.zeros(n_nodes, np.int64)
+    for node in range(n_nodes):  # parents first: children split the parent's run
+        child = routing[node].left
+        if child != node:
+            start[child] = start[node]
+            start[child + 1] = start[node] + counts[child]
+    cursor = start.copy()
+    members = np.empty(leaf_of_point.size, np.int64)
+    for point in range(leaf_of_point.size):
+        leaf = leaf_of_point[point]
+        members[cursor[leaf]] = point
+        cursor[leaf] += 1
+    holder = np.zeros(n_nodes, np.int64)  # nearest ancestor-or-self with two points or more
+    for node in range(1, n_nodes):
+        holder[node] = node if counts[node] > 1 else holder[parent[node]]
+    # predictions by position first (runs of a subtree are contiguous), then by point
+    # node serves grid[first:stop]; its first is where its parent's run stopped
+    stops = np.empty(n_nodes, np.int64)
+    for node in range(n_nodes):
+        first = 0 if node == 0 else stops[parent[node]]
+        stop = first
+        if routing[node].left == node:
+            stop = n_grid
+        else:
+            while stop < n_grid and grid[stop] < split_time[node]:
+                stop += 1
+        stops[node] = stop
+        if first >= stop or counts[node] == 0:
+            continue
+        source = holder[node]
+        share = 1.0 / (counts[source] - 1)
+        for position in range(start[node], start[node] + counts[node]):
+            point = members[position]
+            for k in range(targets.shape[1]):
+                prediction = (value[source, k] * counts[source] - targets[point, k]) * share
+                for g in range(first, stop):
+                    by_position[k, g, position] = prediction
+    for k in range(targets.shape[1]):
+        for g in range(n_grid):
+            for position in range(leaf_of_point.size):
+                total[k, g, members[position]] += by_position[k, g, position]
+
+
+@njit(cache=True, nogil=True)
+def prune_tree(routing, parent, split_time, counts, value, lifetime):
+    """The tree at a smaller lifetime: cells born later dropped, later cuts made leaves."""
+    n_nodes = parent.size
+    new_id = np.full(n_nodes, -1, np.int64)
+    kept = 0
+    for node in range(n_nodes):  # parents first, so a kept node's parent is known
+        birth = 0.0 if node == 0 else split_time[parent[node]]
+        if birth <= lifetime:
+            new_id[node] = kept
+            kept += 1
+    pruned = np.empty(kept, ROUTING_RECORD)
+    pruned_parent = np.empty(kept, np.int32)
+    pruned_split = np.empty(kept)
+    pruned_counts = np.empty(kept, np.int32)
+    pruned_value = np.empty((kept, value.shape[1]))
+    for node in range(n_nodes):
+        target = new_id[node]
+        if target < 0:
+            continue
+        if routing[node].left != node and split_time[node] <= lifetime:
+            pruned[target] = routing[node]
+            pruned[target].left = new_id[routing[node].left]
+            pruned_split[target] = split_time[node]
+        else:
+            pruned[target].offset = np.inf
+            pruned[target].left = target
+            pruned[target].direction = 0
+            pruned_split[target] = np.inf
+        pruned_parent[target] = -1 if node == 0 else new_id[parent[node]]
+        pruned_counts[target] = counts[node]
+        pruned_value[target] = value[node]
+    return pruned, pruned_parent, pruned_split, pruned_counts, pruned_value
+
+
+@njit(cache=True, nogil=True)
+def node_depths(parent):
+    """Depth of every node (parents come before their children)."""
+    depth = np.zeros(parent.size, np.int32)
+    for node in range(1, parent.size):
+        depth[node] = depth[parent[node]] + 1
+    return depth

@@ -1,0 +1,154 @@
+"""Mergeable sufficient statistics: exact merging in any order, against direct formulas.
+
+References: numpy's ``np.cov`` (with ``fweights``: integer frequency
+weights) and ``np.average`` for weighted means and covariances, scipy's
+``scipy.stats.kurtosis`` (Fisher, population) for the fourth moment; the
+third-order co-moment is checked against its definition summed directly.
+"""
+
+import itertools
+
+import numpy as np
+import pytest
+import scipy.stats
+
+from splitlift.moments import SliceScheme
+from splitlift.sufficient_statistics import (
+    MomentStatistics,
+    ScalarMoments,
+    block_statistics,
+    merge_all,
+)
+
+RNG = np.random.default_rng(20261203)
+X = RNG.standard_normal((900, 4)) @ RNG.standard_normal((4, 4)) + [3.0, -1.0, 0.5, 10.0]
+Y = X[:, 0] - X[:, 1] ** 2 + 0.3 * RNG.standard_normal(900)
+W = RNG.integers(0, 4, 900).astype(float)
+EDGES = np.quantile(Y, [0.25, 0.5, 0.75])
+SCHEME = SliceScheme("count", edges=EDGES)
+
+
+def statistics(rows, weights=None, **kinds):
+    return block_statistics(X[rows], Y[rows], None if weights is None else weights[rows],
+                            scheme=SCHEME, **kinds)
+
+
+def assert_same(a: MomentStatistics, b: MomentStatistics, rtol=1e-12):
+    def close(u, v):
+        np.testing.assert_allclose(u, v, rtol=rtol, atol=rtol * max(1.0, np.abs(v).max()))
+
+    close(a.mean, b.mean)
+    close(a.covariance, b.covariance)
+    close(a.slices.weight, b.slices.weight)
+    close(a.deviations(a.slices), b.deviations(b.slices))
+    if a.slices.scatter is not None:
+        close(a.slices.scatter, b.slices.scatter)
+    if a.response is not None:
+        close(a.response.cross, b.response.cross)
+        close(a.response.weighted_scatter, b.response.weighted_scatter)
+
+
+@pytest.mark.parametrize("kinds", [{}, {"slice_scatter": True}, {"response": True}],
+                         ids=["SIR", "SAVE", "pHd"])
+def test_blocks_merged_in_any_order_equal_one_block(kinds):
+    whole = statistics(np.arange(900), **kinds)
+    blocks = [statistics(rows, **kinds) for rows in np.array_split(RNG.permutation(900), 5)]
+    for order in itertools.islice(itertools.permutations(range(5)), 0, 120, 17):
+        sequential = blocks[order[0]]
+        for index in order[1:]:
+            sequential = sequential.merge(blocks[index])
+        assert_same(sequential, whole)
+    assert_same(merge_all(blocks), whole)  # the balanced tree Dask uses
+
+
+def test_weighted_moments_match_numpy_frequency_weights():
+    stats = statistics(np.arange(900), W, slice_scatter=True, response=True)
+    kept = W > 0
+    # numpy reference: np.cov with fweights, divisor sum(w) (bias=True)
+    np.testing.assert_allclose(stats.covariance, np.cov(X.T, fweights=W.astype(int), bias=True),
+                               rtol=1e-12)
+    np.testing.assert_allclose(stats.mean, np.average(X, axis=0, weights=W), rtol=1e-12)
+    labels = SCHEME.labels(Y)
+    for h in range(SCHEME.n_slices):
+        rows = kept & (labels == h)
+        np.testing.assert_allclose(stats.slices.absolute_mean[h],
+                                   np.average(X[rows], axis=0, weights=W[rows]), rtol=1e-12)
+        np.testing.assert_allclose(stats.slices.scatter[h] / W[rows].sum(),
+                                   np.cov(X[rows].T, fweights=W[rows].astype(int), bias=True),
+                                   rtol=1e-10, atol=1e-12)
+    assert stats.n_rows == int(kept.sum()) and stats.weight == W.sum()
+
+
+def test_integer_weights_equal_repeated_rows():
+    weighted = statistics(np.arange(900), W, slice_scatter=True, response=True)
+    repeated = block_statistics(X.repeat(W.astype(int), axis=0), Y.repeat(W.astype(int)),
+                                scheme=SCHEME, slice_scatter=True, response=True)
+    assert_same(weighted, repeated, rtol=1e-11)
+
+
+def test_response_co_moments_follow_their_definition():
+    blocks = [statistics(rows, response=True) for rows in np.array_split(np.arange(900), 7)]
+    merged = merge_all(blocks)
+    e = Y - Y.mean()
+    u = X - X.mean(axis=0)
+    np.testing.assert_allclose(merged.response.cross, u.T @ e, rtol=1e-11)
+    direct = np.einsum("i,ij,ik->jk", e, u, u)  # Σ e u u^T, summed directly
+    np.testing.assert_allclose(merged.response.weighted_scatter, direct, rtol=1e-11)
+
+
+def test_scalar_moments_merge_matches_scipy_kurtosis():
+    values = RNG.standard_exponential(5000) * 7.0 + 100.0
+    parts = [ScalarMoments.of(chunk) for chunk in np.array_split(values, 9)]
+    merged = parts[0]
+    for part in parts[1:]:
+        merged = merged.merge(part)
+    # scipy.stats.kurtosis: Fisher's excess kurtosis, population (biased) form
+    assert merged.excess_kurtosis() == pytest.approx(scipy.stats.kurtosis(values), rel=1e-10)
+    assert merged.variance == pytest.approx(values.var(), rel=1e-12)
+
+
+def test_a_large_offset_does_not_cancel():
+    # X + 1e8: raw sums would keep about 0 correct digits of a unit variance;
+    # centred blocks and shifted means keep about 8 (the data's own precision)
+    offset = X - X.mean(axis=0) + 1e8
+    reference = block_statistics(X - X.mean(axis=0), Y, scheme=SCHEME, slice_scatter=True)
+    merged = merge_all([block_statistics(offset[rows], Y[rows], scheme=SCHEME, slice_scatter=True)
+                        for rows in np.array_split(np.arange(900), 6)])
+    np.testing.assert_allclose(merged.covariance, reference.covariance, rtol=1e-6)
+    np.testing.assert_allclose(merged.deviations(merged.slices),
+                               reference.deviations(reference.slices), rtol=1e-6, atol=1e-7)
+
+
+def test_float32_blocks_accumulate_in_float64():
+    single = block_statistics(X.astype(np.float32), Y, scheme=SCHEME)
+    assert single.covariance.dtype == np.float64
+    double = block_statistics(X.astype(np.float32).astype(np.float64), Y, scheme=SCHEME)
+    np.testing.assert_allclose(single.covariance, double.covariance, rtol=1e-12)
+
+
+def test_value_slices_merge_by_union_of_values():
+    labels = np.array(["a", "b", "c"])[RNG.integers(0, 3, 900)]
+    parts = []  # the first batch never saw "c"
+    for rows in (np.flatnonzero(labels[:450] != "c"), 450 + np.arange(450)):
+        values = np.unique(labels[rows])
+        parts.append(block_statistics(X[rows], labels[rows],
+                                      scheme=SliceScheme("value", values=values)))
+    merged = parts[0].merge(parts[1])
+    assert merged.scheme.values.tolist() == ["a", "b", "c"]
+    rows = np.concatenate([np.flatnonzero(labels[:450] != "c"), 450 + np.arange(450)])
+    whole = block_statistics(X[rows], labels[rows],
+                             scheme=SliceScheme("value", values=np.array(["a", "b", "c"])))
+    np.testing.assert_allclose(merged.slices.weight, whole.slices.weight)
+    np.testing.assert_allclose(merged.deviations(merged.slices), whole.deviations(whole.slices),
+                               rtol=1e-12, atol=1e-14)
+
+
+def test_incompatible_statistics_refuse_to_merge():
+    a = statistics(np.arange(300))
+    other_edges = block_statistics(X[300:], Y[300:], scheme=SliceScheme("count", edges=EDGES[:2]))
+    with pytest.raises(ValueError, match="different slice edges"):
+        a.merge(other_edges)
+    with pytest.raises(ValueError, match="4 and 3 features"):
+        a.merge(block_statistics(X[300:, :3], Y[300:], scheme=SCHEME))
+    with pytest.raises(ValueError, match="different methods"):
+        a.merge(statistics(np.arange(300, 900), response=True))
