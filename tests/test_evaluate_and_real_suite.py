@@ -35,7 +35,7 @@ def test_evaluate_prints_the_table_and_verdict_and_writes_csv(kiln_file, tmp_pat
     result = run("evaluate", str(path), "--target", "strength", "--forest", "et", "--cv", "3",
                  "--out", str(out))
     assert result.returncode == 0, result.stderr
-    assert "raw inputs" in result.stdout and "OPG dim 1 + inputs" in result.stdout
+    assert "raw inputs" in result.stdout and "ADE dim 1 + inputs" in result.stdout
     assert "(3-fold CV of ExtraTreesRegressor)" in result.stdout
     table = pd.read_csv(out)
     assert table["candidate"].iloc[0] == "raw inputs" and table["chosen"].sum() == 1
@@ -49,9 +49,10 @@ def test_evaluate_writes_json_and_a_plot(kiln_file, tmp_path, capsys):
     out, plot = tmp_path / "comparison.json", tmp_path / "errors.png"
     assert main(["evaluate", str(path), "--target", "strength", "--forest", "et", "--cv", "2",
                  "--out", str(out), "--plot", str(plot)]) == 0
-    document = json.loads(out.read_text())
-    assert document["verdict"] in capsys.readouterr().out and document["folds"] == 2
-    assert len(document["candidates"]) == 9
+    rows = json.loads(out.read_text())  # one object per candidate, the verdict in each
+    assert rows[0]["verdict"] in capsys.readouterr().out
+    assert len(rows) == 3  # the defaults: raw inputs, the ADE lift alone and with inputs kept
+    assert [row["chosen"] for row in rows].count(True) == 1
     assert plot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
 
@@ -70,7 +71,7 @@ def test_evaluate_reads_numeric_codes_as_classes_on_request(kiln_file, tmp_path,
     ("arguments", "message", "code"),
     [(["--forest", "boosted"], "invalid choice", 2),
      (["--cv", "1"], "--cv must be at least 2", 2),
-     (["--out", "table.txt"], "--out must end in .csv or .json", 2),
+     (["--out", "table.txt"], "tables are written as", 2),
      (["--cv", "200"], "too few for cv = 200 folds", 1)],
 )
 def test_evaluate_bad_input_fails_cleanly(kiln_file, tmp_path, capsys, arguments, message,

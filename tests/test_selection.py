@@ -179,7 +179,7 @@ class Failing(BaseEstimator):
         self.dim = dim
         self.threshold = threshold
 
-    def fit(self, X, y):
+    def fit(self, X, y, sample_weight=None):
         if self.threshold is None or X[:, 0].max() < self.threshold:
             raise RuntimeError("no directions today")
         self.basis_ = np.eye(X.shape[1])[:, : self.dim]

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Iterable
 
-from joblib import Parallel, delayed
+from sklearn.utils.parallel import Parallel, delayed
 
 #: Set by the command line's ``--quiet``: no bar anywhere in this process.
 QUIET = False
@@ -29,7 +29,9 @@ def parallel_map(function: Callable, items: Iterable, total: int, label: str,
     """``[function(item) for item in items]`` in parallel (joblib), in input order.
 
     The bar advances as results arrive, in any order; the results never
-    depend on ``n_jobs``.
+    depend on ``n_jobs``. scikit-learn's wrappers of joblib carry its
+    configuration (``set_config``) into the workers, so forests fitted there
+    behave as in the caller.
     """
     jobs = Parallel(n_jobs=n_jobs, return_as="generator_unordered")(
         delayed(_numbered)(function, index, item) for index, item in enumerate(items))

@@ -138,7 +138,7 @@ def _outcome_counts(changes: np.ndarray, ses: np.ndarray) -> tuple[int, int, int
     return lower, len(changes) - lower - worse, worse
 
 
-def run_real(quick: bool, out, names=None, n_jobs=None, forests=tuple(FORESTS)) -> dict:
+def run_real(quick: bool, out, names=None, n_jobs=-1, forests=tuple(FORESTS)) -> dict:
     """Run the suite, print its tables to ``out`` and return the figures.
 
     ``names`` picks data sets and ``forests`` labels of :data:`FORESTS` (all by
