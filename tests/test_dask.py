@@ -1,7 +1,8 @@
 """Dask input on a real local cluster: fits equal in-memory fits, transforms stay lazy.
 
-A ``distributed.LocalCluster`` with two worker processes is started for this
-module and shut down after it; nothing is mocked. Angles are measured with
+A ``distributed.LocalCluster`` with two worker processes is started by the
+``dask_client`` fixture (tests/conftest.py) and shut down after the session;
+nothing is mocked. Angles are measured with
 ``scipy.linalg.subspace_angles``; the agreement threshold is 1e-10 rad.
 """
 
@@ -29,13 +30,9 @@ CHUNKS = (2500, 3500, 1000, 5000)  # uneven on purpose
 NAMES = [f"sensor_{i}" for i in range(D)]
 
 
-@pytest.fixture(scope="module")
-def client():
-    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                       memory_limit="1GiB", dashboard_address=None)
-    with distributed.Client(cluster) as connected:
-        yield connected
-    cluster.close()
+@pytest.fixture
+def client(dask_client):
+    return dask_client
 
 
 def as_dask(values, chunks=CHUNKS):
