@@ -13,9 +13,6 @@ from scipy.linalg import subspace_angles
 import splitlift as sl
 from splitlift import cli, large_data
 
-pytest.importorskip("dask", reason="the [dask] extra is part of the test extra")
-pytest.importorskip("pyarrow")
-
 NAMES = ["temperature", "pressure", "flow", "humidity"]
 
 

@@ -6,18 +6,15 @@ nothing is mocked. Angles are measured with
 ``scipy.linalg.subspace_angles``; the agreement threshold is 1e-10 rad.
 """
 
+import dask.array as da  # the [dask] extra is part of the test extra: never skipped
+import dask.dataframe as dd
 import numpy as np
 import pandas as pd
 import pytest
 from scipy.linalg import subspace_angles
 
-dask = pytest.importorskip("dask", reason="the [dask] extra is part of the test extra")
-distributed = pytest.importorskip("distributed")
-import dask.array as da  # noqa: E402
-import dask.dataframe as dd  # noqa: E402
-
-import splitlift as sl  # noqa: E402
-from splitlift import dask_support  # noqa: E402
+import splitlift as sl
+from splitlift import dask_support
 
 TOLERANCE_RAD = 1e-10
 RNG = np.random.default_rng(20261207)

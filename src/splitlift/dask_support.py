@@ -400,8 +400,6 @@ def _weighted_sketch(values: np.ndarray, weights: np.ndarray) -> np.ndarray:
 # ---------------------------------------------------------------------- fits
 def fit_on_dask(estimator, X, y, sample_weight=None):
     """Fit a splitlift estimator on Dask collections (see the module notes)."""
-    from .estimators._base import MomentEstimator
-
     if not is_dask_collection(X):
         raise ValueError(
             "y or sample_weight is a Dask collection but X is not; pass X as a Dask array "
@@ -411,7 +409,7 @@ def fit_on_dask(estimator, X, y, sample_weight=None):
     if blocks.y_collection is None:
         raise ValueError("y is required: pass the response aligned with X.")
     register_features(estimator, _as_dask(X), reset=True)
-    if isinstance(estimator, MomentEstimator):
+    if hasattr(estimator, "_fit_statistics"):  # a moment method: statistics suffice
         _fit_moments(estimator, blocks)
     else:
         _fit_on_sample(estimator, X, blocks)
@@ -419,11 +417,9 @@ def fit_on_dask(estimator, X, y, sample_weight=None):
 
 
 def _fit_moments(estimator, blocks: _Blocks) -> None:
-    from .estimators._base import SlicedMomentEstimator
-
     estimator._check_statistics_only_fit(blocks.n_features)
     scheme, exact = None, True
-    if isinstance(estimator, SlicedMomentEstimator):
+    if hasattr(estimator, "slice_edges"):  # a sliced method
         scheme, exact = _slice_scheme(estimator, blocks)
     options = _BlockOptions(not estimator._accepts_labels or scheme is None
                             or scheme.kind == "count", scheme, estimator._slice_scatter,
