@@ -192,8 +192,9 @@ CASES = [
      ["--out lift.npz", ".csv, .tsv, .parquet, .json"]),
     ("transform-out-xlsx", TRANSFORM + ["--out", "t.xlsx"], USAGE,
      ["tables are written as", "'.xlsx'"]),
-    ("transform-out-no-suffix", TRANSFORM + ["--out", "lifted"], USAGE,
-     ["tables are written as", "no suffix"]),
+    # (an --out without suffix is a folder for partitioned Parquet: tests/test_cli_large_data.py)
+    ("transform-out-unknown-suffix", TRANSFORM + ["--out", "lifted.xlsx"], USAGE,
+     ["tables are written as", ".xlsx"]),
     ("transform-no-out", TRANSFORM, USAGE, ["required", "--out"]),
     ("score-out-is-data", SCORE + ["--out", "good.csv"], USAGE, ["--out good.csv", "is the input"]),
     ("score-out-is-candidate", ["score", "axes.csv", "--data", "good.csv", "--target", "y",
@@ -212,7 +213,9 @@ CASES = [
     # ---------------------------------------------------------------- data and files (exit 1)
     ("data-missing", ["fit", "absent.csv", "--target", "y"] + OUT, DATA,
      ["absent.csv", "does not exist"]),
-    ("data-is-folder", ["fit", "adir", "--target", "y"] + OUT, DATA, ["adir", "is a directory"]),
+    # a folder is read as a Parquet dataset (tests/test_cli_large_data.py); this one holds none
+    ("data-is-folder", ["fit", "adir", "--target", "y"] + OUT, DATA,
+     ["adir", "no Parquet files found"]),
     ("data-empty", ["fit", "empty.csv", "--target", "y"] + OUT, DATA, ["empty"]),
     ("data-header-only", ["fit", "header_only.csv", "--target", "y"] + OUT, DATA,
      ["has a header but no data rows"]),
@@ -300,7 +303,7 @@ CASES = [
     ("transform-data-header-only", ["transform", "lift.npz", "header_only.csv", "--out",
                                     "t.csv"], DATA, ["no data rows"]),
     ("transform-data-folder", ["transform", "lift.npz", "adir", "--out", "t.csv"], DATA,
-     ["adir is a directory"]),
+     ["no Parquet files found at adir"]),
     ("report-reference-missing", ["report", "lift.npz", "--reference", "absent.npy"], DATA,
      ["absent.npy", "does not exist"]),
     ("report-reference-broken", ["report", "lift.npz", "--reference", "broken.npy"], DATA,

@@ -55,7 +55,8 @@ def test_fit_on_a_glob_runs_on_a_cluster_address(dataset, tmp_path, dask_client)
     folder, _ = dataset
     result = subprocess.run(
         [sys.executable, "-m", "splitlift.cli", "fit", str(folder / "day-*.parquet"), "--target",
-         "yield_", "--method", "save", "--dim", "2", "--out", str(tmp_path / "lift.npz"),
+         "yield_", "--estimator", "SlicedAverageVariance", "--dim", "2", "--out",
+         str(tmp_path / "lift.npz"),
          "--scheduler", dask_client.scheduler.address],
         capture_output=True, text=True, timeout=300)
     assert result.returncode == 0, result.stderr
