@@ -143,9 +143,19 @@ def _companion(values, X, name: str):
     return da.from_array(array, chunks=(X.chunks[0],))
 
 
-def _delayed_parts(array) -> list:
-    """Row chunks of a Dask array (all columns in one chunk) as delayed objects."""
-    return list(np.ravel(array.to_delayed()))
+def _array_parts(X, y, weights):
+    """Row chunks of X, y and weights as delayed objects of one jointly optimised graph.
+
+    Optimised together, work that X and y share (y computed from X, or both
+    read from one source) keeps one name and is done once per chunk.
+    """
+    import dask
+
+    present = [part for part in (X, y, weights) if part is not None]
+    optimised = iter(dask.optimize(*present))
+    parts = [list(np.ravel(next(optimised).to_delayed(optimize_graph=False)))
+             if part is not None else None for part in (X, y, weights)]
+    return parts[0], *[p if p is not None else [None] * len(parts[0]) for p in parts[1:]]
 
 
 def _aligned_blocks(X, y, sample_weight) -> _Blocks:
@@ -170,9 +180,7 @@ def _aligned_blocks(X, y, sample_weight) -> _Blocks:
     if _is_frame(X):
         x_parts, y_parts, w_parts = _frame_parts(X, y, weights)
     else:
-        x_parts = _delayed_parts(X)
-        y_parts = _delayed_parts(y) if y is not None else [None] * len(x_parts)
-        w_parts = _delayed_parts(weights) if weights is not None else [None] * len(x_parts)
+        x_parts, y_parts, w_parts = _array_parts(X, y, weights)
     rows = None if _is_frame(X) or np.isnan(X.shape[0]) else int(X.shape[0])
     n_features = len(X.columns) if _is_frame(X) else int(X.shape[1])
     return _Blocks(x_parts, y_parts, w_parts, y, weights, rows, n_features)

@@ -85,28 +85,40 @@ def measured(function) -> dict:
     return {"seconds": seconds, "peak_rss_mb": memory.peak / 2**20}
 
 
-def dask_moments(n_samples: int, n_features: int = 20, chunk_rows: int = 1_000_000) -> dict:
-    """SIR on the lazy array against Dask's ``X.T @ X`` on it: time ratio and peak RSS."""
+def dask_moments(n_samples: int, n_features: int = 20, chunk_rows: int = 1_000_000,
+                 rounds: int = 2) -> dict:
+    """SIR on the lazy array against Dask's ``X.T @ X`` on it: time ratio and peak RSS.
+
+    The steps run in turn ``rounds`` times and each keeps its best time (and
+    the largest peak), so load from other work on a shared machine weighs on
+    the ratio as little as possible.
+    """
     import dask
 
     from ..estimators import SlicedInverse
 
     X, y = lazy_problem(n_samples, n_features, chunk_rows)
-    rows = []
+    fitted = SlicedInverse(n_slices=10, dim=2)
+    steps = [
+        ("Dask X.T @ X (reference)", lambda: (X.T @ X).compute()),
+        ("SIR fit (slice pass + statistics pass)", lambda: fitted.fit(X, y)),
+        ("SIR fit, slice edges given (one pass)", lambda: SlicedInverse(
+            n_slices=10, dim=2, slice_edges=fitted.slice_edges_).fit(X, y)),
+    ]
+    best: dict[str, dict] = {}
     with dask.config.set(scheduler="threads"), warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        reference = measured(lambda: (X.T @ X).compute())
-        rows.append({"step": "Dask X.T @ X (reference)", **reference, "ratio": 1.0})
-        estimator = SlicedInverse(n_slices=10, dim=2)
-        fitted = measured(lambda: estimator.fit(X, y))
-        rows.append({"step": "SIR fit (slice pass + statistics pass)", **fitted,
-                     "ratio": fitted["seconds"] / reference["seconds"]})
-        edges = estimator.slice_edges_
-        given = measured(lambda: SlicedInverse(n_slices=10, dim=2, slice_edges=edges).fit(X, y))
-        rows.append({"step": "SIR fit, slice edges given (one pass)", **given,
-                     "ratio": given["seconds"] / reference["seconds"]})
+        for _ in range(rounds):
+            for name, step in steps:
+                result = measured(step)
+                kept = best.setdefault(name, result)
+                kept["seconds"] = min(kept["seconds"], result["seconds"])
+                kept["peak_rss_mb"] = max(kept["peak_rss_mb"], result["peak_rss_mb"])
+    reference = best[steps[0][0]]["seconds"]
+    rows = [{"step": name, **best[name], "ratio": best[name]["seconds"] / reference}
+            for name, _ in steps]
     return {"n_samples": n_samples, "n_features": n_features, "chunk_rows": chunk_rows,
-            "rows": rows, "n_slices_used": int(estimator.n_slices_)}
+            "rounds": rounds, "rows": rows, "n_slices_used": int(fitted.n_slices_)}
 
 
 def batch_throughput(n_samples: int, n_features: int = 20, batch_rows: int = 100_000) -> dict:
@@ -173,8 +185,8 @@ def run_scale(quick: bool, out) -> dict:
         results["parquet"] = parquet_throughput(200_000 if quick else 10_000_000)
     moments = results["dask_moments"]
     out.write(f"\nSIR on a lazily generated Dask array, n = {n:.0e}, d = 20, chunks of {chunk} "
-              "rows, threaded scheduler (2 threads; the machine's 2 cores are shared with "
-              "other work)\n")
+              f"rows, threaded scheduler, best of {moments['rounds']} alternating rounds "
+              "(peak RSS: the largest)\n")
     out.write(table(moments["rows"], [
         ("step", "step", "s"), ("seconds", "seconds", ".1f"), ("ratio", "x Dask X.T@X", ".2f"),
         ("peak_rss_mb", "peak RSS MB", ".0f")]) + "\n")
