@@ -1,4 +1,4 @@
-"""Shared fixtures: simulated designs used across the test modules."""
+"""Shared fixtures: simulated designs used across the test modules, a local Dask cluster."""
 
 import numpy as np
 import pytest
@@ -14,3 +14,15 @@ def li_rational_model(generator, n_samples, n_features=10, noise=0.1):
     X = generator.standard_normal((n_samples, n_features))
     y = X[:, 0] / (0.5 + (X[:, 1] + 1.5) ** 2) + noise * generator.standard_normal(n_samples)
     return X, y, np.eye(n_features)[:, :2]
+
+
+@pytest.fixture(scope="session")
+def dask_client():
+    """A real ``distributed.LocalCluster``: two worker processes, 1 GiB each, shut down after."""
+    import distributed  # the [dask] extra is part of the test extra: never skipped
+
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                       memory_limit="1GiB", dashboard_address=None)
+    with distributed.Client(cluster) as client:
+        yield client
+    cluster.close()

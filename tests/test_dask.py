@@ -1,22 +1,20 @@
 """Dask input on a real local cluster: fits equal in-memory fits, transforms stay lazy.
 
-A ``distributed.LocalCluster`` with two worker processes is started for this
-module and shut down after it; nothing is mocked. Angles are measured with
+A ``distributed.LocalCluster`` with two worker processes is started by the
+``dask_client`` fixture (tests/conftest.py) and shut down after the session;
+nothing is mocked. Angles are measured with
 ``scipy.linalg.subspace_angles``; the agreement threshold is 1e-10 rad.
 """
 
+import dask.array as da  # the [dask] extra is part of the test extra: never skipped
+import dask.dataframe as dd
 import numpy as np
 import pandas as pd
 import pytest
 from scipy.linalg import subspace_angles
 
-dask = pytest.importorskip("dask", reason="the [dask] extra is part of the test extra")
-distributed = pytest.importorskip("distributed")
-import dask.array as da  # noqa: E402
-import dask.dataframe as dd  # noqa: E402
-
-import splitlift as sl  # noqa: E402
-from splitlift import dask_support  # noqa: E402
+import splitlift as sl
+from splitlift import dask_support
 
 TOLERANCE_RAD = 1e-10
 RNG = np.random.default_rng(20261207)
@@ -29,13 +27,9 @@ CHUNKS = (2500, 3500, 1000, 5000)  # uneven on purpose
 NAMES = [f"sensor_{i}" for i in range(D)]
 
 
-@pytest.fixture(scope="module")
-def client():
-    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                       memory_limit="1GiB", dashboard_address=None)
-    with distributed.Client(cluster) as connected:
-        yield connected
-    cluster.close()
+@pytest.fixture
+def client(dask_client):
+    return dask_client
 
 
 def as_dask(values, chunks=CHUNKS):

@@ -279,9 +279,10 @@ def _build_parser() -> argparse.ArgumentParser:
 
     bench = _command(commands, "bench", "time splitlift against reference implementations",
                      "Speed against statsmodels, X.T @ X and scikit-learn's extra-trees; "
-                     "accuracy and rate on synthetic problems; the real-data suite.",
+                     "accuracy and rate on synthetic problems; the real-data suite; the "
+                     "scale suite (Dask, batches, Parquet output).",
                      "splitlift bench --suite all --quick --markdown bench.md")
-    bench.add_argument("--suite", choices=["speed", "accuracy", "rate", "real", "all"],
+    bench.add_argument("--suite", choices=["speed", "accuracy", "rate", "real", "scale", "all"],
                        default="speed", help="which tables to produce")
     bench.add_argument("--quick", action="store_true", help="small sizes, finishes fast")
     bench.add_argument("--json", metavar="FILE", help="also write the results as JSON")

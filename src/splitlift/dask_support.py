@@ -143,9 +143,19 @@ def _companion(values, X, name: str):
     return da.from_array(array, chunks=(X.chunks[0],))
 
 
-def _delayed_parts(array) -> list:
-    """Row chunks of a Dask array (all columns in one chunk) as delayed objects."""
-    return list(np.ravel(array.to_delayed()))
+def _array_parts(X, y, weights):
+    """Row chunks of X, y and weights as delayed objects of one jointly optimised graph.
+
+    Optimised together, work that X and y share (y computed from X, or both
+    read from one source) keeps one name and is done once per chunk.
+    """
+    import dask
+
+    present = [part for part in (X, y, weights) if part is not None]
+    optimised = iter(dask.optimize(*present))
+    parts = [list(np.ravel(next(optimised).to_delayed(optimize_graph=False)))
+             if part is not None else None for part in (X, y, weights)]
+    return parts[0], *[p if p is not None else [None] * len(parts[0]) for p in parts[1:]]
 
 
 def _aligned_blocks(X, y, sample_weight) -> _Blocks:
@@ -170,9 +180,7 @@ def _aligned_blocks(X, y, sample_weight) -> _Blocks:
     if _is_frame(X):
         x_parts, y_parts, w_parts = _frame_parts(X, y, weights)
     else:
-        x_parts = _delayed_parts(X)
-        y_parts = _delayed_parts(y) if y is not None else [None] * len(x_parts)
-        w_parts = _delayed_parts(weights) if weights is not None else [None] * len(x_parts)
+        x_parts, y_parts, w_parts = _array_parts(X, y, weights)
     rows = None if _is_frame(X) or np.isnan(X.shape[0]) else int(X.shape[0])
     n_features = len(X.columns) if _is_frame(X) else int(X.shape[1])
     return _Blocks(x_parts, y_parts, w_parts, y, weights, rows, n_features)
@@ -400,8 +408,6 @@ def _weighted_sketch(values: np.ndarray, weights: np.ndarray) -> np.ndarray:
 # ---------------------------------------------------------------------- fits
 def fit_on_dask(estimator, X, y, sample_weight=None):
     """Fit a splitlift estimator on Dask collections (see the module notes)."""
-    from .estimators._base import MomentEstimator
-
     if not is_dask_collection(X):
         raise ValueError(
             "y or sample_weight is a Dask collection but X is not; pass X as a Dask array "
@@ -411,7 +417,7 @@ def fit_on_dask(estimator, X, y, sample_weight=None):
     if blocks.y_collection is None:
         raise ValueError("y is required: pass the response aligned with X.")
     register_features(estimator, _as_dask(X), reset=True)
-    if isinstance(estimator, MomentEstimator):
+    if hasattr(estimator, "_fit_statistics"):  # a moment method: statistics suffice
         _fit_moments(estimator, blocks)
     else:
         _fit_on_sample(estimator, X, blocks)
@@ -419,11 +425,9 @@ def fit_on_dask(estimator, X, y, sample_weight=None):
 
 
 def _fit_moments(estimator, blocks: _Blocks) -> None:
-    from .estimators._base import SlicedMomentEstimator
-
     estimator._check_statistics_only_fit(blocks.n_features)
     scheme, exact = None, True
-    if isinstance(estimator, SlicedMomentEstimator):
+    if hasattr(estimator, "slice_edges"):  # a sliced method
         scheme, exact = _slice_scheme(estimator, blocks)
     options = _BlockOptions(not estimator._accepts_labels or scheme is None
                             or scheme.kind == "count", scheme, estimator._slice_scatter,

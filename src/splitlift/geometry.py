@@ -55,7 +55,7 @@ def canonical_basis(projector: np.ndarray, rank: int) -> np.ndarray:
 
         basis, triangular, _ = qr(projector, pivoting=True)
         basis, triangular = basis[:, :rank], triangular[:rank, :rank]
-    return basis * np.sign(np.diag(triangular))
+    return basis * np.sign(np.diag(triangular)) + 0.0  # + 0.0: no negative zeros
 
 
 def random_rotation(dim: int, generator) -> np.ndarray:

@@ -18,6 +18,9 @@ import glob
 import os
 from pathlib import Path
 
+#: How long ``--scheduler ADDRESS`` waits for the cluster to answer.
+CONNECT_TIMEOUT = "10s"
+
 #: Local Dask schedulers ``--scheduler`` accepts by name.
 LOCAL_SCHEDULERS = ("threads", "processes", "synchronous")
 
@@ -118,7 +121,7 @@ def scheduler(spec: str | None):
             "pip install 'splitlift[dask]'."
         ) from None
     try:
-        client = Client(spec, timeout="10s", set_as_default=True)
+        client = Client(spec, timeout=CONNECT_TIMEOUT, set_as_default=True)
     except OSError as error:
         raise OSError(f"cannot reach the Dask scheduler at {spec} ({error}); check the "
                       "address, or use --scheduler threads.") from None

@@ -203,8 +203,9 @@ class DirectionLift(TransformerMixin, BaseEstimator):
             sample_weight = check_sample_weight(sample_weight, X.shape[0])
             standardised = self._fit_standardisation(X, sample_weight)
         estimator = clone(SlicedInverse() if self.estimator is None else self.estimator)
+        weighted = {} if sample_weight is None else {"sample_weight": sample_weight}
         self.estimator_ = _seed_estimator(estimator, self.random_state).fit(
-            standardised, y, sample_weight=sample_weight)
+            standardised, y, **weighted)
         self.subspace_basis_ = self.estimator_.basis_
         names = getattr(self, "feature_names_in_", None)
         self.lift_ = LiftMatrix.from_subspace(

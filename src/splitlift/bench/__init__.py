@@ -1,4 +1,4 @@
-"""``splitlift bench``: speed, accuracy, rate and real-data suites, as tables and JSON.
+"""``splitlift bench``: speed, accuracy, rate, real-data and scale suites, as tables and JSON.
 
 Benchmarks are kept out of the test suite. Every ratio compares timings
 taken in the same process, on the same data, one after the other.
@@ -14,7 +14,7 @@ import time
 from .._progress import progress_bar
 from ._timing import machine_description
 
-SUITES = ("speed", "accuracy", "rate", "real")
+SUITES = ("speed", "accuracy", "rate", "real", "scale")
 
 
 class _Tee(io.StringIO):
@@ -84,6 +84,10 @@ def _suite_runner(name: str):
         from .rate import run_rate
 
         return run_rate
+    if name == "scale":
+        from .scale import run_scale
+
+        return run_scale
     from .real import run_real
 
     return run_real

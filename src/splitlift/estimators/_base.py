@@ -692,7 +692,8 @@ def _ill_conditioned(X: np.ndarray, weights) -> str | None:
     scatter = covariance(kept, weighted_mean(kept, weights), weights)
     inverse_spread = 1.0 / np.sqrt(np.diag(scatter))
     values = np.linalg.eigvalsh(scatter * np.outer(inverse_spread, inverse_spread))
-    index = np.sqrt(values[-1] / max(values[0], np.finfo(float).tiny))
+    with np.errstate(over="ignore"):  # an exactly singular matrix: an infinite index
+        index = np.sqrt(values[-1] / max(values[0], np.finfo(float).tiny))
     if index <= CONDITION_INDEX_LIMIT:
         return None
     return (
