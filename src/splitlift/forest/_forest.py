@@ -126,9 +126,10 @@ class _StitForest(BaseEstimator):
         seeds = check_random_state(self.random_state).randint(_SEED_BOUND, size=self.n_trees)
         # the directions in input coordinates: z(x) = linear @ (x - center) + lifted_center
         if window is None:
-            center, steps = (X.max(axis=0) + X.min(axis=0)) / 2, np.ptp(X, axis=0) / 2
+            center = X.max(axis=0) / 2 + X.min(axis=0) / 2  # (halves first: no overflow)
+            steps = X.max(axis=0) / 2 - X.min(axis=0) / 2
         else:
-            center, steps = (window[0] + window[1]) / 2, (window[1] - window[0]) / 2
+            center, steps = window[0] / 2 + window[1] / 2, window[1] / 2 - window[0] / 2
         linear, lifted_center = lifting.affine_form(center, np.where(steps > 0, steps, 1.0))
         if window is None:
             trees, exponent, grid, path = self._grow_on_data(lifted, targets, lifetime, seeds)
