@@ -84,13 +84,6 @@ def dimension_and_stability(n_samples: int = 10_000, n_features: int = 20,
     return {"n_samples": n_samples, "n_features": n_features, "rows": rows}
 
 
-def forest_speed(n_samples: int = 20_000, n_features: int = 10, n_trees: int = 100) -> dict:
-    """The STIT forest against ``ExtraTreesRegressor(max_features=1)``, same trees and data."""
-    from .forest import benchmark_forest
-
-    return benchmark_forest(n_samples, n_features, n_trees, random_state=0)
-
-
 def run_speed(quick: bool, out) -> dict:
     results = {}
     n = 100_000 if quick else 1_000_000
@@ -120,14 +113,7 @@ def run_speed(quick: bool, out) -> dict:
         ("method", "method", "s"), ("rule", "default rule", "s"), ("dim", "dim", "d"),
         ("auto_seconds", "auto (s)", ".2f"), ("n_boot", "n_boot", "d"),
         ("stability_seconds", "stability (s)", ".2f")]) + "\n")
-    forest = forest_speed(5_000 if quick else 20_000, 10, 50 if quick else 100)
-    results["forest"] = forest
-    out.write(f"\nSTIT forest (axis lift, full growth) vs ExtraTreesRegressor(max_features=1), "
-              f"n = {forest['n_samples']}, d = {forest['n_features']}, "
-              f"{forest['n_trees']} trees\n")
-    out.write(table([forest], [
-        ("stit_fit_seconds", "STIT fit", ".2f"), ("reference_fit_seconds", "ET fit", ".2f"),
-        ("fit_ratio", "fit ratio", ".2f"), ("stit_predict_seconds", "STIT pred", ".2f"),
-        ("reference_predict_seconds", "ET pred", ".2f"),
-        ("predict_ratio", "pred ratio", ".2f")]) + "\n")
+    from .forest import run_forest_speed
+
+    results["forest"] = run_forest_speed(quick, out)
     return results

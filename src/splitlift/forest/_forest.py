@@ -379,25 +379,33 @@ def _filled(tree: StitTree, leaf_of_point: np.ndarray, targets: np.ndarray) -> S
 
 _SHARED_PARAMETERS = """
     lifetime : "auto" or float in (0, inf], default "auto"
-        Lifetime λ of the Mondrian process, in the units of ``z = A x``.
-        ``np.inf`` (data mode only) grows each tree until every leaf holds
-        a single distinct training point. ``"auto"`` picks λ by 5-fold
-        cross-validation: per fold, trees are grown once to the largest
-        lifetime of the grid and every grid value is scored by pruning them
-        at the node birth times (the trees are nested in λ); the grid has
-        30 values log-spaced in ``λ R`` from 0.25 up to ``n`` (data mode,
-        followed by ``inf``) or ``d (n^{1/d} - 1)`` (window mode), ``R``
-        being the clock rate of the whole domain. The score is the
-        out-of-fold squared error of the forest prediction.
+        Lifetime λ of the Mondrian process, in the units of the lifted
+        coordinates ``z``. ``np.inf`` (data mode only) grows each tree until
+        every leaf holds a single distinct training point. ``"auto"`` grows
+        the trees once (to ``inf`` in data mode, to the largest grid
+        lifetime in window mode) and picks the grid lifetime whose pruned
+        forest has the smallest leave-one-out error; the forest at that λ is
+        the grown forest pruned at the node birth times, since Mondrian
+        trees are nested in λ. Leave-one-out is honest here because a
+        partition depends on X only, never on y: each training point is
+        predicted by the other training points of its cell (of its nearest
+        ancestor cell when it is alone). The grid has 30 values log-spaced
+        in ``λ R`` from 0.25 up to ``n`` (data mode, followed by ``inf``) or
+        ``d (n^{1/d} - 1)`` (window mode), ``R`` being the clock rate of the
+        whole domain; the choice is made on the lifted data rescaled by a
+        power of two, so a common scale of the data does not change it.
     n_trees : int, default 100
         Number of trees.
     lift : LiftMatrix or array-like of shape (n_directions, n_features), default None
-        Split directions as rows. An array is used as given: its row norms
-        are the directions' weights. None means the input columns
-        (the axis-aligned Mondrian forest, ``A = I``). Must have rank
-        ``n_features``. The clock runs at ``Σ_i width_i``, so a LiftMatrix
-        (row norms summing to 1) needs a lifetime about ``n_features``
-        times longer than ``A = I`` for partitions of similar size.
+        Split directions as rows. A LiftMatrix acts through its own
+        :meth:`~splitlift.LiftMatrix.apply`, standardisation included, so the
+        forest sees the coordinates ``ApplyLift(lift)`` would give it. An
+        array is used as given: ``z = X @ lift.T``, its row norms being the
+        directions' weights. None means the input columns (the axis-aligned
+        Mondrian forest, ``A = I``). Must have rank ``n_features``. The
+        clock runs at ``Σ_i width_i``, so a LiftMatrix (row norms summing to
+        1) needs a lifetime about ``n_features`` times longer than ``A = I``
+        for partitions of similar size.
     extent : {"data", "window"}, default "data"
         ``"data"``: a cell's width along ``a_i`` is the extent of the
         training points inside it (the practical variant; leaves are never
@@ -410,17 +418,19 @@ _SHARED_PARAMETERS = """
         ``extent="window"``; None there means the bounding box of the
         training data (a constant column gets a side of length 1).
     random_state : int, RandomState instance or None, default None
-        Seeds every tree (one seed per tree, drawn up front) and the folds.
+        Seeds every tree (one seed per tree, drawn up front).
     n_jobs : int, default None
-        Parallel jobs of joblib: trees grow in worker processes and are
-        routed in threads. None means 1 (unless in a joblib context), -1
-        all cores. Results do not depend on it.
+        Threads of joblib: growth, scoring and routing run in compiled code
+        that releases the GIL (window mode grows its partitions in worker
+        processes). None means 1 (unless in a joblib context), -1 all
+        cores. Results do not depend on it.
 """
 
 _SHARED_ATTRIBUTES = """
     trees_ : list of StitTree
-        The fitted trees; in window mode their cuts (direction index,
-        offset) are in ``tree.cuts()``.
+        The fitted trees (views of the forest's node arrays): cut offsets
+        in lifted units, times in the units of λ; in window mode their cuts
+        (direction index, offset) are in ``tree.cuts()``.
     n_leaves_ : ndarray of int, shape (n_trees,)
         Leaves per tree; in window mode the cells of the window's partition,
         empty ones included.
@@ -429,10 +439,13 @@ _SHARED_ATTRIBUTES = """
     lifetime_grid_ : ndarray or None
         Lifetimes tried by ``lifetime="auto"``; None otherwise.
     lifetime_path_ : ndarray or None
-        Mean out-of-fold squared error per grid lifetime (the Brier score for
-        a classifier); None unless ``lifetime="auto"``.
+        Mean leave-one-out squared error of the training points per grid
+        lifetime (the Brier score for a classifier); None unless
+        ``lifetime="auto"`` (and the data have more than one distinct row).
     lift_matrix_ : ndarray of shape (n_directions, n_features)
-        The directions ``A`` the trees cut along.
+        The directions the trees cut along, in input coordinates: lifted
+        coordinate i is ``lift_matrix_[i] @ x`` plus a constant (nonzero
+        when a LiftMatrix centres its inputs; read off its ``apply``).
     window_ : ndarray of shape (2, n_features) or None
         The window (window mode), else None.
     n_features_in_ : int
@@ -441,13 +454,24 @@ _SHARED_ATTRIBUTES = """
 """
 
 _SHARED_NOTES = """
-    A Mondrian process run on ``z = A x`` is a STIT tessellation of x-space
-    whose directional distribution has atoms ``±a_i/‖a_i‖`` with weights
-    ``‖a_i‖`` (Nagel & Weiss 2005). A cell is cut after an exponential time
-    of rate ``Σ_i width_i``, along ``a_i`` with probability ∝ ``width_i``,
-    at a uniform offset. Growth and routing handle all cells of one depth at
-    once with numpy; window mode grows cell by cell and is meant for small
-    windows and lifetimes.
+    A Mondrian process (Roy & Teh 2008) run on ``z = A x`` is a STIT
+    tessellation of x-space whose directional distribution has atoms
+    ``±a_i/‖a_i‖`` with weights ``‖a_i‖`` (Nagel & Weiss 2005; O'Reilly &
+    Tran 2022 simulate STIT this way, by lifting). A cell is cut after an
+    exponential time of rate ``Σ_i width_i``, along ``a_i`` with
+    probability ∝ ``width_i``, at a uniform offset.
+
+    Growth and routing are compiled with numba and cached on disk: the first
+    use on a machine compiles once, and a fresh process then pays only the
+    loading of the cached code. In data mode each cell keeps a box that may
+    be larger than its points' extent, and runs the Mondrian clock of that
+    box; a proposed cut that misses the cell's points tightens the box along
+    that direction and the clock runs on. This is exact, because a Mondrian
+    process restricted to a sub-box is a Mondrian process on that sub-box,
+    and each proposal costs one pass over a single lifted column. Points are
+    routed in k-d order, several in lockstep, one tree at a time. Window
+    mode computes exact cell polytopes in Python, cell by cell, and is meant
+    for small windows and lifetimes.
 
     In data mode every leaf holds training points. In window mode a cell
     may hold none; a point reaching it is predicted by the nearest ancestor
@@ -456,19 +480,25 @@ _SHARED_NOTES = """
 
     References
     ----------
-    Lakshminarayanan, B., Roy, D. M. and Teh, Y. W. (2014). Mondrian forests:
-    efficient online random forests. NeurIPS 27.
+    Roy, D. M. and Teh, Y. W. (2008). The Mondrian process. NeurIPS 21.
 
     Nagel, W. and Weiss, V. (2005). Crack STIT tessellations: characterization
     of stationary random tessellations stable with respect to iteration.
     Advances in Applied Probability 37, 859-883.
+
+    Lakshminarayanan, B., Roy, D. M. and Teh, Y. W. (2014). Mondrian forests:
+    efficient online random forests. NeurIPS 27.
+
+    O'Reilly, E. and Tran, N. M. (2022). Stochastic geometry to generalize the
+    Mondrian process. SIAM Journal on Mathematics of Data Science
+    (arXiv:2002.00797).
 
     Mourtada, J., Gaïffas, S. and Scornet, E. (2020). Minimax optimal rates for
     Mondrian trees and forests. Annals of Statistics 48, 2253-2276.
 
     O'Reilly, E. and Tran, N. M. (2024). Minimax rates for high-dimensional
     random tessellation forests. Journal of Machine Learning Research 25(89),
-    1-32.
+    1-32 (arXiv:2109.10541, 2021).
 
     O'Reilly, E. (2024). Statistical advantages of oblique randomized decision
     trees and forests. arXiv:2407.02458 (risk bounds in terms of the leakage
