@@ -6,9 +6,7 @@ release the GIL (``nogil=True``); the estimators run them in joblib threads.
 
 Trees are flat arrays over node ids. A node's two children are consecutive
 (``right = left + 1``) and every child has a larger id than its parent, so
-bottom-up sums run over ids in reverse and top-down fills in order. A
-forest is the concatenation of its trees' arrays; ``tree_start[t]`` is the
-first row of tree ``t`` and child and parent ids stay local to their tree.
+bottom-up sums run over ids in reverse and top-down fills in order.
 """
 
 from __future__ import annotations
@@ -441,30 +439,26 @@ def _route_group(rows, first, size, base, nodes, current):
 
 
 @njit(cache=True, nogil=True)
-def apply_forest(rows, tree_start, nodes, leaves):
-    """Leaf id (local to its tree) of every point in every tree, into ``leaves`` (n, n_trees)."""
+def apply_tree(rows, routing, leaves):
+    """Leaf id of every point in one tree, into ``leaves`` (n,)."""
     current = np.zeros(_LOCKSTEP, np.uint64)
-    for tree in range(tree_start.size - 1):
-        base = np.uint64(tree_start[tree])
-        for first in range(0, rows.shape[0], _LOCKSTEP):
-            size = min(_LOCKSTEP, rows.shape[0] - first)
-            _route_group(rows, first, size, base, nodes, current)
-            for g in range(size):
-                leaves[first + g, tree] = current[g]
+    for first in range(0, rows.shape[0], _LOCKSTEP):
+        size = min(_LOCKSTEP, rows.shape[0] - first)
+        _route_group(rows, first, size, np.uint64(0), routing, current)
+        for g in range(size):
+            leaves[first + g] = current[g]
 
 
 @njit(cache=True, nogil=True)
-def add_leaf_values(rows, tree_start, nodes, value, total):
-    """Add every tree's leaf value for every point to ``total`` (n, n_outputs), tree by tree."""
+def add_tree_values(rows, routing, value, total):
+    """Add one tree's leaf value for every point to ``total`` (n, n_outputs)."""
     current = np.zeros(_LOCKSTEP, np.uint64)
-    for tree in range(tree_start.size - 1):
-        base = np.uint64(tree_start[tree])
-        for first in range(0, rows.shape[0], _LOCKSTEP):
-            size = min(_LOCKSTEP, rows.shape[0] - first)
-            _route_group(rows, first, size, base, nodes, current)
-            for g in range(size):
-                for k in range(value.shape[1]):
-                    total[first + g, k] += value[base + current[g], k]
+    for first in range(0, rows.shape[0], _LOCKSTEP):
+        size = min(_LOCKSTEP, rows.shape[0] - first)
+        _route_group(rows, first, size, np.uint64(0), routing, current)
+        for g in range(size):
+            for k in range(value.shape[1]):
+                total[first + g, k] += value[current[g], k]
 
 
 @njit(cache=True, nogil=True)

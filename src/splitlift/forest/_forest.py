@@ -26,14 +26,14 @@ from ..lift import LiftMatrix
 from . import _compiled
 from ._lifetime import lifetime_grid
 from ._lifting import Lifting, binary_exponent, times_power_of_two
-from ._tree import ForestArrays, StitTree, prune, tree_from_growth
+from ._tree import Forest, StitTree, on_lifted_clock, prune, tree_from_growth
 from ._window import grow_in_window, window_widths
 
 _SEED_BOUND = np.iinfo(np.int32).max
 # A constant column of a data-derived window gets a side of this length.
 _FLAT_SIDE = 1.0
-# Query points are routed in blocks of this many, each through every tree in turn; a
-# point's sum over trees is then the same for any block size and any n_jobs.
+# Query points are routed in blocks of at least this many, each through every tree in
+# turn; a point's sum over trees is then the same for any block size and any n_jobs.
 _BLOCK = 2048
 # Trees per batch when scoring lifetimes; fixed, so sums do not depend on n_jobs.
 _TREES_PER_BATCH = 8
@@ -138,12 +138,12 @@ class _StitForest(BaseEstimator):
                 linear, lifted_center, steps, lifted, targets, lifetime, seeds)
         self.lift_matrix_ = linear
         self._lifting = lifting
-        self._forest = ForestArrays(trees, clock_exponent=exponent)
+        self._forest = Forest([on_lifted_clock(tree, exponent) for tree in trees])
         self.window_ = window
         self.lifetime_grid_ = None if grid is None else np.ldexp(grid, -exponent)
         self.lifetime_path_ = path
         if lifetime is None:
-            chosen = self._forest.lifetimes[0]
+            chosen = self._forest.trees[0].lifetime
             self.lifetime_ = float(chosen)
             _warn_if_out_of_range(self.lifetime_, float(np.ldexp(chosen, exponent)), exponent)
         else:
@@ -199,7 +199,7 @@ class _StitForest(BaseEstimator):
                 raise ValueError(_NEVER_STOPS)
         partitions = self._parallel(_grow_window_batch, normals, upper, grow_to, exponent,
                                     lifted_center, seeds, prefer="processes")
-        leaves = ForestArrays(partitions).apply(lifted)
+        leaves = Forest(partitions).apply(lifted)
         leaves = [np.ascontiguousarray(leaves[:, k]) for k in range(len(partitions))]
         trees = [_filled(tree, leaves[k], targets) for k, tree in enumerate(partitions)]
         if lifetime is None:
@@ -254,7 +254,7 @@ class _StitForest(BaseEstimator):
     @property
     def trees_(self) -> list[StitTree]:
         check_is_fitted(self)
-        return self._forest.trees()
+        return list(self._forest.trees)
 
     def _lifted(self, X) -> np.ndarray:
         check_is_fitted(self)
@@ -262,16 +262,18 @@ class _StitForest(BaseEstimator):
         return np.require(self._lifting(X), requirements=["C", "W"])
 
     def _in_blocks(self, method: str, lifted: np.ndarray) -> np.ndarray:
-        """``ForestArrays.<method>`` over blocks of points, in k-d order.
+        """``Forest.<method>`` over blocks of points, in k-d order.
 
         Neighbouring points share most of their paths, so routing them one
-        after the other keeps those tree nodes in the cache.
+        after the other keeps those tree nodes in the cache. Each point's sum
+        runs over the trees in order, whatever the blocks.
         """
         order = _locality_order(lifted)
         rows = np.ascontiguousarray(lifted[order])
+        block = max(_BLOCK, -(-rows.shape[0] // (4 * _effective_jobs(self.n_jobs))))
         parts = Parallel(n_jobs=self.n_jobs, prefer="threads")(
-            delayed(getattr(self._forest, method))(rows[first : first + _BLOCK])
-            for first in range(0, rows.shape[0], _BLOCK)
+            delayed(getattr(self._forest, method))(rows[first : first + block])
+            for first in range(0, rows.shape[0], block)
         )
         result = np.empty((rows.shape[0], parts[0].shape[1]), dtype=parts[0].dtype)
         result[order] = np.concatenate(parts)
