@@ -40,7 +40,7 @@ _TREES_PER_BATCH = 8
 # Bytes of one batch's leave-one-out predictions (points x lifetimes x outputs).
 _TUNING_BYTES = 1 << 27
 # Points per leaf of the k-d ordering that keeps a cell's training points close in memory.
-_LOCALITY_LEAF = 32
+_LOCALITY_LEAF = 8
 
 
 class _StitForest(BaseEstimator):
