@@ -141,42 +141,31 @@ def grow_from_data(rows, columns, lifetime, seed, exponent):
             high = max(high, columns[k, i])
         box[k], box[m + k] = low, high
 
+    # the root's subtree grows on the whole data until its cells are small enough to be
+    # set aside; each of those then grows from a compact copy of its points
     local_limit = max(2, LOCAL_CELL_BYTES // (8 * m))
-    # cells waiting for their compact copy: node, birth, box and the training points
-    waiting_node = [0]
-    waiting_birth = [0.0]
-    waiting_box = [box.copy()]
-    waiting_points = [np.arange(n).astype(np.int32)]
-    n_nodes = 1
-    while len(waiting_node) > 0:
-        node = waiting_node.pop()
-        birth = waiting_birth.pop()
-        box[:] = waiting_box.pop()
-        points = waiting_points.pop()
+    orders = np.empty((2, n), np.uint32)
+    orders[0] = np.arange(n)
+    n_nodes, set_aside, n_set_aside = _grow_subtree(
+        rows, columns, orders, np.arange(n).astype(np.int32), 0, 0.0, box, lifetime,
+        local_limit, direction, offset, left, parent, split_time, leaf_of_point, 1)
+    for item in range(n_set_aside):
+        start, end = int(set_aside[item, 1]), int(set_aside[item, 2])
+        points = orders[int(set_aside[item, 3]), start:end].astype(np.int32)
         count = points.size
-        if node == 0:
-            local_rows, local_columns = rows, columns
-        else:
-            # whole points are copied (contiguous), then transposed inside the cache
-            local_rows = np.empty((count, m))
-            for i in range(count):
-                point = points[i]
-                for k in range(m):
-                    local_rows[i, k] = rows[point, k]
-            local_columns = np.ascontiguousarray(local_rows.T)
-        orders = np.empty((2, count), np.uint32)
-        orders[0] = np.arange(count)
-        set_aside_at = local_limit if node == 0 else 0
-        n_nodes, set_aside, n_set_aside = _grow_subtree(
-            local_rows, local_columns, orders, points, node, birth, box, lifetime, set_aside_at,
-            direction, offset, left, parent, split_time, leaf_of_point, n_nodes)
-        for item in range(n_set_aside):
-            start, end = int(set_aside[item, 1]), int(set_aside[item, 2])
-            buffer = int(set_aside[item, 3])
-            waiting_node.append(int(set_aside[item, 0]))
-            waiting_birth.append(set_aside[item, 4])
-            waiting_box.append(set_aside[item, 5:].copy())
-            waiting_points.append(points[orders[buffer, start:end]])
+        # whole points are copied (contiguous), then transposed inside the cache
+        local_rows = np.empty((count, m))
+        for i in range(count):
+            point = points[i]
+            for k in range(m):
+                local_rows[i, k] = rows[point, k]
+        local_orders = np.empty((2, count), np.uint32)
+        local_orders[0] = np.arange(count)
+        box[:] = set_aside[item, 5:]
+        n_nodes = _grow_subtree(
+            local_rows, np.ascontiguousarray(local_rows.T), local_orders, points,
+            int(set_aside[item, 0]), set_aside[item, 4], box, lifetime, 0, direction, offset,
+            left, parent, split_time, leaf_of_point, n_nodes)[0]
     return (routing_records(direction[:n_nodes], offset[:n_nodes], left[:n_nodes], exponent),
             parent[:n_nodes].copy(), split_time[:n_nodes].copy(), leaf_of_point)
 
@@ -284,6 +273,7 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
                     status = _SET_ASIDE_FULL
                     depth += 1
                     break
+                # (element by element: assigning a tuple allocates in compiled code)
                 set_aside[n_set_aside, 0] = node
                 set_aside[n_set_aside, 1] = start
                 set_aside[n_set_aside, 2] = end
