@@ -33,7 +33,8 @@ ROUTING_RECORD = np.dtype([("offset", np.float64), ("left", np.int32), ("directi
 def _set_logged(box, position, value, log_position, log_value, log_length):
     """``box[position] = value``, remembering the old value; returns the new log length.
 
-    The caller keeps room in the log (see ``_with_room``).
+    The caller keeps room in the log: it checks once per cell, which writes at
+    most ``2 m + 2`` entries.
     """
     if box[position] == value:
         return log_length
@@ -116,9 +117,9 @@ def grow_from_data(rows, columns, lifetime, seed, exponent):
     exactly instead, which is cheaper than waiting for misses.
 
     Growth runs depth first. The box lives in one array with an undo log,
-    so a child costs two logged writes instead of a copy. A cell much
-    smaller than the array it is read from is set aside and grown later
-    from a compact copy of its points, so passes stay within the cache.
+    so a child costs two logged writes instead of a copy. Cells whose
+    points fit in ``LOCAL_CELL_BYTES`` are set aside and grown afterwards
+    from a compact copy of their points, so their passes stay in the cache.
     """
     m, n = columns.shape
     # inside compiled code np.random is numba's own per-thread stream, not numpy's global

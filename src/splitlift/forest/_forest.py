@@ -13,7 +13,7 @@ import warnings
 from numbers import Integral, Real
 
 import numpy as np
-from joblib import Parallel, delayed
+from joblib import Parallel, delayed, effective_n_jobs
 from scipy.spatial import cKDTree
 from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
 from sklearn.utils import check_random_state
@@ -140,12 +140,13 @@ class _StitForest(BaseEstimator):
         self._lifting = lifting
         self._forest = Forest([on_lifted_clock(tree, exponent) for tree in trees])
         self.window_ = window
-        self.lifetime_grid_ = None if grid is None else np.ldexp(grid, -exponent)
+        self.lifetime_grid_ = None if grid is None else times_power_of_two(grid, -exponent)
         self.lifetime_path_ = path
         if lifetime is None:
             chosen = self._forest.trees[0].lifetime
             self.lifetime_ = float(chosen)
-            _warn_if_out_of_range(self.lifetime_, float(np.ldexp(chosen, exponent)), exponent)
+            _warn_if_out_of_range(self.lifetime_, float(times_power_of_two(chosen, exponent)),
+                                  exponent)
         else:
             self.lifetime_ = lifetime
         self.n_leaves_ = self._forest.n_leaves()
@@ -243,7 +244,7 @@ class _StitForest(BaseEstimator):
         parallel; window growth is Python and runs in processes.
         """
         *shared, seeds = args
-        n_batches = min(len(seeds), 4 * max(1, _effective_jobs(self.n_jobs)))
+        n_batches = min(len(seeds), 4 * max(1, effective_n_jobs(self.n_jobs)))
         batches = [list(batch) for batch in np.array_split(np.asarray(seeds), n_batches)]
         results = Parallel(n_jobs=self.n_jobs, prefer=prefer)(
             delayed(batch_function)(*shared, batch) for batch in batches
@@ -270,7 +271,7 @@ class _StitForest(BaseEstimator):
         """
         order = _locality_order(lifted)
         rows = np.ascontiguousarray(lifted[order])
-        block = max(_BLOCK, -(-rows.shape[0] // (4 * _effective_jobs(self.n_jobs))))
+        block = max(_BLOCK, -(-rows.shape[0] // (4 * effective_n_jobs(self.n_jobs))))
         parts = Parallel(n_jobs=self.n_jobs, prefer="threads")(
             delayed(getattr(self._forest, method))(rows[first : first + block])
             for first in range(0, rows.shape[0], block)
@@ -311,12 +312,6 @@ def _locality_order(points: np.ndarray) -> np.ndarray:
         return np.arange(points.shape[0])
     return cKDTree(points, leafsize=_LOCALITY_LEAF, balanced_tree=False, compact_nodes=False,
                    copy_data=False).indices
-
-
-def _effective_jobs(n_jobs) -> int:
-    from joblib import effective_n_jobs
-
-    return effective_n_jobs(n_jobs)
 
 
 def _warn_if_out_of_range(lifetime: float, rescaled: float, exponent: int) -> None:
