@@ -8,7 +8,7 @@ from sklearn.pipeline import make_pipeline
 from splitlift import LiftMatrix
 from splitlift.estimators import SlicedInverse
 from splitlift.forest import StitForestClassifier, StitForestRegressor
-from splitlift.transformer import DirectionLift
+from splitlift.transformer import ApplyLift, DirectionLift
 
 # synthetic single-index problem: an oblique direction in 8 dimensions
 OBLIQUE = np.array([1, -1, 1, -1, 1, 1, -1, 1]) / np.sqrt(8)
@@ -165,3 +165,25 @@ def test_pipeline_after_direction_lift():
     ).fit(X, y)
     X_test = rng.normal(size=(300, X.shape[1]))
     assert pipeline.score(X_test, X_test @ OBLIQUE) > 0.8
+
+
+@pytest.mark.parametrize("forest_class", [StitForestRegressor, StitForestClassifier])
+def test_lift_with_standardisation_acts_as_in_a_pipeline(forest_class):
+    # A lift acts through its own apply() wherever it is used: a forest given the lift
+    # and a pipeline ApplyLift(lift) -> forest grow the same trees. Synthetic columns at
+    # scales 1, 100 and 0.01; the lift was built in standardised coordinates.
+    rng = np.random.default_rng(10)
+    scales = np.array([1.0, 100.0, 0.01])
+    X = rng.normal(size=(400, 3)) * scales + np.array([5.0, -300.0, 0.2])
+    standardised = (X - X.mean(axis=0)) / X.std(axis=0)
+    direction = np.array([1.0, 1.0, 0.0]) / np.sqrt(2)
+    signal = np.sin(2 * standardised @ direction)
+    y = signal + 0.1 * rng.normal(size=400) if forest_class is StitForestRegressor else signal > 0
+    lift = LiftMatrix.from_subspace(direction, complement_weight=0.05,
+                                    input_mean=X.mean(axis=0), input_scale=X.std(axis=0))
+    direct = forest_class(n_trees=10, lift=lift, random_state=10).fit(X, y)
+    piped = make_pipeline(ApplyLift(lift), forest_class(n_trees=10, random_state=10)).fit(X, y)
+    X_new = rng.normal(size=(200, 3)) * scales + np.array([5.0, -300.0, 0.2])
+    np.testing.assert_array_equal(direct.predict(X_new), piped.predict(X_new))
+    np.testing.assert_array_equal(direct.apply(X_new), piped[-1].apply(lift.apply(X_new)))
+    assert direct.score(X, y) > 0.9

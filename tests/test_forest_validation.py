@@ -53,3 +53,26 @@ def test_a_full_rank_array_lift_is_used_as_given():
     np.testing.assert_array_equal(forest.lift_matrix_, lift)
     doubled = StitForestRegressor(n_trees=2, lifetime=0.5, lift=2 * lift, random_state=0)
     np.testing.assert_array_equal(doubled.fit(X, Y).apply(X), forest.apply(X))
+
+
+def test_lifted_values_beyond_the_double_range_are_refused():
+    # Finite inputs whose lifted coordinates overflow (|z| > 1.8e308) get a plain message.
+    X_huge = np.array([[1e308, 1e308], [-1e308, 5e307], [0.0, 1.0]])
+    lift = np.array([[1.0, 1.0], [1.0, -1.0]])
+    with pytest.raises(ValueError, match="overflow the double range"):
+        StitForestRegressor(n_trees=2, lift=lift).fit(X_huge, [1.0, 2.0, 3.0])
+    forest = StitForestRegressor(n_trees=2, lift=lift, lifetime=1.0).fit(X[:, :2], Y)
+    with pytest.raises(ValueError, match="overflow the double range"):
+        forest.predict(X_huge)
+
+
+def test_a_lifetime_outside_the_normal_range_is_reported():
+    # Data near the top of the double range: the forest still works on a rescaled clock,
+    # identical to the unit-scale forest, and says that lifetime_ is only approximate.
+    rng = np.random.default_rng(1)
+    X_unit = rng.uniform(1.0, 1.9, size=(60, 3))
+    y = rng.normal(size=60)  # pure noise: the chosen lifetime is short
+    unit = StitForestRegressor(n_trees=5, random_state=0).fit(X_unit, y)
+    with pytest.warns(UserWarning, match="outside the normal range"):
+        huge = StitForestRegressor(n_trees=5, random_state=0).fit(np.ldexp(X_unit, 1023), y)
+    np.testing.assert_array_equal(huge.predict(np.ldexp(X_unit, 1023)), unit.predict(X_unit))

@@ -117,13 +117,6 @@ def dimension_choice(n_samples: int = 4_000, n_features: int = 20, seeds=(0, 1, 
     return {"n_samples": n_samples, "n_features": n_features, "rows": rows}
 
 
-def forest_speed(n_samples: int = 20_000, n_features: int = 10, n_trees: int = 100) -> dict:
-    """The STIT forest against ``ExtraTreesRegressor(max_features=1)``, same trees and data."""
-    from .forest import benchmark_forest
-
-    return benchmark_forest(n_samples, n_features, n_trees, random_state=0)
-
-
 def command_line_startup(repeats: int = 3) -> dict:
     """Best wall time of ``python -m splitlift --help`` in a fresh process (lazy imports)."""
     import subprocess
@@ -182,14 +175,7 @@ def run_speed(quick: bool, out) -> dict:
     out.write(table(choice["rows"], [
         ("resample", "resample", "s"), ("right", "right", "d"), ("cases", "of", "d"),
         ("seconds", "seconds", ".1f")]) + "\n")
-    forest = forest_speed(5_000 if quick else 20_000, 10, 50 if quick else 100)
-    results["forest"] = forest
-    out.write(f"\nSTIT forest (axis lift, full growth) vs ExtraTreesRegressor(max_features=1), "
-              f"n = {forest['n_samples']}, d = {forest['n_features']}, "
-              f"{forest['n_trees']} trees\n")
-    out.write(table([forest], [
-        ("stit_fit_seconds", "STIT fit", ".2f"), ("reference_fit_seconds", "ET fit", ".2f"),
-        ("fit_ratio", "fit ratio", ".2f"), ("stit_predict_seconds", "STIT pred", ".2f"),
-        ("reference_predict_seconds", "ET pred", ".2f"),
-        ("predict_ratio", "pred ratio", ".2f")]) + "\n")
+    from .forest import run_forest_speed
+
+    results["forest"] = run_forest_speed(quick, out)
     return results

@@ -6,9 +6,7 @@ release the GIL (``nogil=True``); the estimators run them in joblib threads.
 
 Trees are flat arrays over node ids. A node's two children are consecutive
 (``right = left + 1``) and every child has a larger id than its parent, so
-bottom-up sums run over ids in reverse and top-down fills in order. A
-forest is the concatenation of its trees' arrays; ``tree_start[t]`` is the
-first row of tree ``t`` and child and parent ids stay local to their tree.
+bottom-up sums run over ids in reverse and top-down fills in order.
 """
 
 from __future__ import annotations
@@ -35,7 +33,8 @@ ROUTING_RECORD = np.dtype([("offset", np.float64), ("left", np.int32), ("directi
 def _set_logged(box, position, value, log_position, log_value, log_length):
     """``box[position] = value``, remembering the old value; returns the new log length.
 
-    The caller keeps room in the log (see ``_with_room``).
+    The caller keeps room in the log: it checks once per cell, which writes at
+    most ``2 m + 2`` entries.
     """
     if box[position] == value:
         return log_length
@@ -118,9 +117,9 @@ def grow_from_data(rows, columns, lifetime, seed, exponent):
     exactly instead, which is cheaper than waiting for misses.
 
     Growth runs depth first. The box lives in one array with an undo log,
-    so a child costs two logged writes instead of a copy. A cell much
-    smaller than the array it is read from is set aside and grown later
-    from a compact copy of its points, so passes stay within the cache.
+    so a child costs two logged writes instead of a copy. Cells whose
+    points fit in ``LOCAL_CELL_BYTES`` are set aside and grown afterwards
+    from a compact copy of their points, so their passes stay in the cache.
     """
     m, n = columns.shape
     # inside compiled code np.random is numba's own per-thread stream, not numpy's global
@@ -143,42 +142,31 @@ def grow_from_data(rows, columns, lifetime, seed, exponent):
             high = max(high, columns[k, i])
         box[k], box[m + k] = low, high
 
+    # the root's subtree grows on the whole data until its cells are small enough to be
+    # set aside; each of those then grows from a compact copy of its points
     local_limit = max(2, LOCAL_CELL_BYTES // (8 * m))
-    # cells waiting for their compact copy: node, birth, box and the training points
-    waiting_node = [0]
-    waiting_birth = [0.0]
-    waiting_box = [box.copy()]
-    waiting_points = [np.arange(n).astype(np.int32)]
-    n_nodes = 1
-    while len(waiting_node) > 0:
-        node = waiting_node.pop()
-        birth = waiting_birth.pop()
-        box[:] = waiting_box.pop()
-        points = waiting_points.pop()
+    orders = np.empty((2, n), np.uint32)
+    orders[0] = np.arange(n)
+    n_nodes, set_aside, n_set_aside = _grow_subtree(
+        rows, columns, orders, np.arange(n).astype(np.int32), 0, 0.0, box, lifetime,
+        local_limit, direction, offset, left, parent, split_time, leaf_of_point, 1)
+    for item in range(n_set_aside):
+        start, end = int(set_aside[item, 1]), int(set_aside[item, 2])
+        points = orders[int(set_aside[item, 3]), start:end].astype(np.int32)
         count = points.size
-        if node == 0:
-            local_rows, local_columns = rows, columns
-        else:
-            # whole points are copied (contiguous), then transposed inside the cache
-            local_rows = np.empty((count, m))
-            for i in range(count):
-                point = points[i]
-                for k in range(m):
-                    local_rows[i, k] = rows[point, k]
-            local_columns = np.ascontiguousarray(local_rows.T)
-        orders = np.empty((2, count), np.uint32)
-        orders[0] = np.arange(count)
-        set_aside_at = local_limit if node == 0 else 0
-        n_nodes, set_aside, n_set_aside = _grow_subtree(
-            local_rows, local_columns, orders, points, node, birth, box, lifetime, set_aside_at,
-            direction, offset, left, parent, split_time, leaf_of_point, n_nodes)
-        for item in range(n_set_aside):
-            start, end = int(set_aside[item, 1]), int(set_aside[item, 2])
-            buffer = int(set_aside[item, 3])
-            waiting_node.append(int(set_aside[item, 0]))
-            waiting_birth.append(set_aside[item, 4])
-            waiting_box.append(set_aside[item, 5:].copy())
-            waiting_points.append(points[orders[buffer, start:end]])
+        # whole points are copied (contiguous), then transposed inside the cache
+        local_rows = np.empty((count, m))
+        for i in range(count):
+            point = points[i]
+            for k in range(m):
+                local_rows[i, k] = rows[point, k]
+        local_orders = np.empty((2, count), np.uint32)
+        local_orders[0] = np.arange(count)
+        box[:] = set_aside[item, 5:]
+        n_nodes = _grow_subtree(
+            local_rows, np.ascontiguousarray(local_rows.T), local_orders, points,
+            int(set_aside[item, 0]), set_aside[item, 4], box, lifetime, 0, direction, offset,
+            left, parent, split_time, leaf_of_point, n_nodes)[0]
     return (routing_records(direction[:n_nodes], offset[:n_nodes], left[:n_nodes], exponent),
             parent[:n_nodes].copy(), split_time[:n_nodes].copy(), leaf_of_point)
 
@@ -286,6 +274,7 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
                     status = _SET_ASIDE_FULL
                     depth += 1
                     break
+                # (element by element: assigning a tuple allocates in compiled code)
                 set_aside[n_set_aside, 0] = node
                 set_aside[n_set_aside, 1] = start
                 set_aside[n_set_aside, 2] = end
@@ -441,30 +430,26 @@ def _route_group(rows, first, size, base, nodes, current):
 
 
 @njit(cache=True, nogil=True)
-def apply_forest(rows, tree_start, nodes, leaves):
-    """Leaf id (local to its tree) of every point in every tree, into ``leaves`` (n, n_trees)."""
+def apply_tree(rows, routing, leaves):
+    """Leaf id of every point in one tree, into ``leaves`` (n,)."""
     current = np.zeros(_LOCKSTEP, np.uint64)
-    for tree in range(tree_start.size - 1):
-        base = np.uint64(tree_start[tree])
-        for first in range(0, rows.shape[0], _LOCKSTEP):
-            size = min(_LOCKSTEP, rows.shape[0] - first)
-            _route_group(rows, first, size, base, nodes, current)
-            for g in range(size):
-                leaves[first + g, tree] = current[g]
+    for first in range(0, rows.shape[0], _LOCKSTEP):
+        size = min(_LOCKSTEP, rows.shape[0] - first)
+        _route_group(rows, first, size, np.uint64(0), routing, current)
+        for g in range(size):
+            leaves[first + g] = current[g]
 
 
 @njit(cache=True, nogil=True)
-def add_leaf_values(rows, tree_start, nodes, value, total):
-    """Add every tree's leaf value for every point to ``total`` (n, n_outputs), tree by tree."""
+def add_tree_values(rows, routing, value, total):
+    """Add one tree's leaf value for every point to ``total`` (n, n_outputs)."""
     current = np.zeros(_LOCKSTEP, np.uint64)
-    for tree in range(tree_start.size - 1):
-        base = np.uint64(tree_start[tree])
-        for first in range(0, rows.shape[0], _LOCKSTEP):
-            size = min(_LOCKSTEP, rows.shape[0] - first)
-            _route_group(rows, first, size, base, nodes, current)
-            for g in range(size):
-                for k in range(value.shape[1]):
-                    total[first + g, k] += value[base + current[g], k]
+    for first in range(0, rows.shape[0], _LOCKSTEP):
+        size = min(_LOCKSTEP, rows.shape[0] - first)
+        _route_group(rows, first, size, np.uint64(0), routing, current)
+        for g in range(size):
+            for k in range(value.shape[1]):
+                total[first + g, k] += value[current[g], k]
 
 
 @njit(cache=True, nogil=True)

@@ -13,7 +13,7 @@ import warnings
 from numbers import Integral, Real
 
 import numpy as np
-from joblib import Parallel, delayed
+from joblib import Parallel, delayed, effective_n_jobs
 from scipy.spatial import cKDTree
 from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
 from sklearn.utils import check_random_state
@@ -26,21 +26,21 @@ from ..lift import LiftMatrix
 from . import _compiled
 from ._lifetime import lifetime_grid
 from ._lifting import Lifting, binary_exponent, times_power_of_two
-from ._tree import ForestArrays, StitTree, prune, tree_from_growth
+from ._tree import Forest, StitTree, on_lifted_clock, prune, tree_from_growth
 from ._window import grow_in_window, window_widths
 
 _SEED_BOUND = np.iinfo(np.int32).max
 # A constant column of a data-derived window gets a side of this length.
 _FLAT_SIDE = 1.0
-# Query points are routed in blocks of this many, each through every tree in turn; a
-# point's sum over trees is then the same for any block size and any n_jobs.
+# Query points are routed in blocks of at least this many, each through every tree in
+# turn; a point's sum over trees is then the same for any block size and any n_jobs.
 _BLOCK = 2048
 # Trees per batch when scoring lifetimes; fixed, so sums do not depend on n_jobs.
 _TREES_PER_BATCH = 8
 # Bytes of one batch's leave-one-out predictions (points x lifetimes x outputs).
 _TUNING_BYTES = 1 << 27
 # Points per leaf of the k-d ordering that keeps a cell's training points close in memory.
-_LOCALITY_LEAF = 32
+_LOCALITY_LEAF = 8
 
 
 class _StitForest(BaseEstimator):
@@ -126,9 +126,10 @@ class _StitForest(BaseEstimator):
         seeds = check_random_state(self.random_state).randint(_SEED_BOUND, size=self.n_trees)
         # the directions in input coordinates: z(x) = linear @ (x - center) + lifted_center
         if window is None:
-            center, steps = (X.max(axis=0) + X.min(axis=0)) / 2, np.ptp(X, axis=0) / 2
+            center = X.max(axis=0) / 2 + X.min(axis=0) / 2  # (halves first: no overflow)
+            steps = X.max(axis=0) / 2 - X.min(axis=0) / 2
         else:
-            center, steps = (window[0] + window[1]) / 2, (window[1] - window[0]) / 2
+            center, steps = window[0] / 2 + window[1] / 2, window[1] / 2 - window[0] / 2
         linear, lifted_center = lifting.affine_form(center, np.where(steps > 0, steps, 1.0))
         if window is None:
             trees, exponent, grid, path = self._grow_on_data(lifted, targets, lifetime, seeds)
@@ -137,14 +138,15 @@ class _StitForest(BaseEstimator):
                 linear, lifted_center, steps, lifted, targets, lifetime, seeds)
         self.lift_matrix_ = linear
         self._lifting = lifting
-        self._forest = ForestArrays(trees, clock_exponent=exponent)
+        self._forest = Forest([on_lifted_clock(tree, exponent) for tree in trees])
         self.window_ = window
-        self.lifetime_grid_ = None if grid is None else np.ldexp(grid, -exponent)
+        self.lifetime_grid_ = None if grid is None else times_power_of_two(grid, -exponent)
         self.lifetime_path_ = path
         if lifetime is None:
-            chosen = self._forest.lifetimes[0]
+            chosen = self._forest.trees[0].lifetime
             self.lifetime_ = float(chosen)
-            _warn_if_out_of_range(self.lifetime_, float(np.ldexp(chosen, exponent)), exponent)
+            _warn_if_out_of_range(self.lifetime_, float(times_power_of_two(chosen, exponent)),
+                                  exponent)
         else:
             self.lifetime_ = lifetime
         self.n_leaves_ = self._forest.n_leaves()
@@ -198,7 +200,7 @@ class _StitForest(BaseEstimator):
                 raise ValueError(_NEVER_STOPS)
         partitions = self._parallel(_grow_window_batch, normals, upper, grow_to, exponent,
                                     lifted_center, seeds, prefer="processes")
-        leaves = ForestArrays(partitions).apply(lifted)
+        leaves = Forest(partitions).apply(lifted)
         leaves = [np.ascontiguousarray(leaves[:, k]) for k in range(len(partitions))]
         trees = [_filled(tree, leaves[k], targets) for k, tree in enumerate(partitions)]
         if lifetime is None:
@@ -242,7 +244,7 @@ class _StitForest(BaseEstimator):
         parallel; window growth is Python and runs in processes.
         """
         *shared, seeds = args
-        n_batches = min(len(seeds), 4 * max(1, _effective_jobs(self.n_jobs)))
+        n_batches = min(len(seeds), 4 * max(1, effective_n_jobs(self.n_jobs)))
         batches = [list(batch) for batch in np.array_split(np.asarray(seeds), n_batches)]
         results = Parallel(n_jobs=self.n_jobs, prefer=prefer)(
             delayed(batch_function)(*shared, batch) for batch in batches
@@ -253,7 +255,7 @@ class _StitForest(BaseEstimator):
     @property
     def trees_(self) -> list[StitTree]:
         check_is_fitted(self)
-        return self._forest.trees()
+        return list(self._forest.trees)
 
     def _lifted(self, X) -> np.ndarray:
         check_is_fitted(self)
@@ -261,16 +263,18 @@ class _StitForest(BaseEstimator):
         return np.require(self._lifting(X), requirements=["C", "W"])
 
     def _in_blocks(self, method: str, lifted: np.ndarray) -> np.ndarray:
-        """``ForestArrays.<method>`` over blocks of points, in k-d order.
+        """``Forest.<method>`` over blocks of points, in k-d order.
 
         Neighbouring points share most of their paths, so routing them one
-        after the other keeps those tree nodes in the cache.
+        after the other keeps those tree nodes in the cache. Each point's sum
+        runs over the trees in order, whatever the blocks.
         """
         order = _locality_order(lifted)
         rows = np.ascontiguousarray(lifted[order])
+        block = max(_BLOCK, -(-rows.shape[0] // (4 * effective_n_jobs(self.n_jobs))))
         parts = Parallel(n_jobs=self.n_jobs, prefer="threads")(
-            delayed(getattr(self._forest, method))(rows[first : first + _BLOCK])
-            for first in range(0, rows.shape[0], _BLOCK)
+            delayed(getattr(self._forest, method))(rows[first : first + block])
+            for first in range(0, rows.shape[0], block)
         )
         result = np.empty((rows.shape[0], parts[0].shape[1]), dtype=parts[0].dtype)
         result[order] = np.concatenate(parts)
@@ -308,12 +312,6 @@ def _locality_order(points: np.ndarray) -> np.ndarray:
         return np.arange(points.shape[0])
     return cKDTree(points, leafsize=_LOCALITY_LEAF, balanced_tree=False, compact_nodes=False,
                    copy_data=False).indices
-
-
-def _effective_jobs(n_jobs) -> int:
-    from joblib import effective_n_jobs
-
-    return effective_n_jobs(n_jobs)
 
 
 def _warn_if_out_of_range(lifetime: float, rescaled: float, exponent: int) -> None:
@@ -378,25 +376,33 @@ def _filled(tree: StitTree, leaf_of_point: np.ndarray, targets: np.ndarray) -> S
 
 _SHARED_PARAMETERS = """
     lifetime : "auto" or float in (0, inf], default "auto"
-        Lifetime λ of the Mondrian process, in the units of ``z = A x``.
-        ``np.inf`` (data mode only) grows each tree until every leaf holds
-        a single distinct training point. ``"auto"`` picks λ by 5-fold
-        cross-validation: per fold, trees are grown once to the largest
-        lifetime of the grid and every grid value is scored by pruning them
-        at the node birth times (the trees are nested in λ); the grid has
-        30 values log-spaced in ``λ R`` from 0.25 up to ``n`` (data mode,
-        followed by ``inf``) or ``d (n^{1/d} - 1)`` (window mode), ``R``
-        being the clock rate of the whole domain. The score is the
-        out-of-fold squared error of the forest prediction.
+        Lifetime λ of the Mondrian process, in the units of the lifted
+        coordinates ``z``. ``np.inf`` (data mode only) grows each tree until
+        every leaf holds a single distinct training point. ``"auto"`` grows
+        the trees once (to ``inf`` in data mode, to the largest grid
+        lifetime in window mode) and picks the grid lifetime whose pruned
+        forest has the smallest leave-one-out error; the forest at that λ is
+        the grown forest pruned at the node birth times, since Mondrian
+        trees are nested in λ. Leave-one-out is honest here because a
+        partition depends on X only, never on y: each training point is
+        predicted by the other training points of its cell (of its nearest
+        ancestor cell when it is alone). The grid has 30 values log-spaced
+        in ``λ R`` from 0.25 up to ``n`` (data mode, followed by ``inf``) or
+        ``d (n^{1/d} - 1)`` (window mode), ``R`` being the clock rate of the
+        whole domain; the choice is made on the lifted data rescaled by a
+        power of two, so a common scale of the data does not change it.
     n_trees : int, default 100
         Number of trees.
     lift : LiftMatrix or array-like of shape (n_directions, n_features), default None
-        Split directions as rows. An array is used as given: its row norms
-        are the directions' weights. None means the input columns
-        (the axis-aligned Mondrian forest, ``A = I``). Must have rank
-        ``n_features``. The clock runs at ``Σ_i width_i``, so a LiftMatrix
-        (row norms summing to 1) needs a lifetime about ``n_features``
-        times longer than ``A = I`` for partitions of similar size.
+        Split directions as rows. A LiftMatrix acts through its own
+        :meth:`~splitlift.LiftMatrix.apply`, standardisation included, so the
+        forest sees the coordinates ``ApplyLift(lift)`` would give it. An
+        array is used as given: ``z = X @ lift.T``, its row norms being the
+        directions' weights. None means the input columns (the axis-aligned
+        Mondrian forest, ``A = I``). Must have rank ``n_features``. The
+        clock runs at ``Σ_i width_i``, so a LiftMatrix (row norms summing to
+        1) needs a lifetime about ``n_features`` times longer than ``A = I``
+        for partitions of similar size.
     extent : {"data", "window"}, default "data"
         ``"data"``: a cell's width along ``a_i`` is the extent of the
         training points inside it (the practical variant; leaves are never
@@ -409,17 +415,19 @@ _SHARED_PARAMETERS = """
         ``extent="window"``; None there means the bounding box of the
         training data (a constant column gets a side of length 1).
     random_state : int, RandomState instance or None, default None
-        Seeds every tree (one seed per tree, drawn up front) and the folds.
+        Seeds every tree (one seed per tree, drawn up front).
     n_jobs : int, default None
-        Parallel jobs of joblib: trees grow in worker processes and are
-        routed in threads. None means 1 (unless in a joblib context), -1
-        all cores. Results do not depend on it.
+        Threads of joblib: growth, scoring and routing run in compiled code
+        that releases the GIL (window mode grows its partitions in worker
+        processes). None means 1 (unless in a joblib context), -1 all
+        cores. Results do not depend on it.
 """
 
 _SHARED_ATTRIBUTES = """
     trees_ : list of StitTree
-        The fitted trees; in window mode their cuts (direction index,
-        offset) are in ``tree.cuts()``.
+        The fitted trees (views of the forest's node arrays): cut offsets
+        in lifted units, times in the units of λ; in window mode their cuts
+        (direction index, offset) are in ``tree.cuts()``.
     n_leaves_ : ndarray of int, shape (n_trees,)
         Leaves per tree; in window mode the cells of the window's partition,
         empty ones included.
@@ -428,10 +436,13 @@ _SHARED_ATTRIBUTES = """
     lifetime_grid_ : ndarray or None
         Lifetimes tried by ``lifetime="auto"``; None otherwise.
     lifetime_path_ : ndarray or None
-        Mean out-of-fold squared error per grid lifetime (the Brier score for
-        a classifier); None unless ``lifetime="auto"``.
+        Mean leave-one-out squared error of the training points per grid
+        lifetime (the Brier score for a classifier); None unless
+        ``lifetime="auto"`` (and the data have more than one distinct row).
     lift_matrix_ : ndarray of shape (n_directions, n_features)
-        The directions ``A`` the trees cut along.
+        The directions the trees cut along, in input coordinates: lifted
+        coordinate i is ``lift_matrix_[i] @ x`` plus a constant (nonzero
+        when a LiftMatrix centres its inputs; read off its ``apply``).
     window_ : ndarray of shape (2, n_features) or None
         The window (window mode), else None.
     n_features_in_ : int
@@ -440,13 +451,24 @@ _SHARED_ATTRIBUTES = """
 """
 
 _SHARED_NOTES = """
-    A Mondrian process run on ``z = A x`` is a STIT tessellation of x-space
-    whose directional distribution has atoms ``±a_i/‖a_i‖`` with weights
-    ``‖a_i‖`` (Nagel & Weiss 2005). A cell is cut after an exponential time
-    of rate ``Σ_i width_i``, along ``a_i`` with probability ∝ ``width_i``,
-    at a uniform offset. Growth and routing handle all cells of one depth at
-    once with numpy; window mode grows cell by cell and is meant for small
-    windows and lifetimes.
+    A Mondrian process (Roy & Teh 2008) run on ``z = A x`` is a STIT
+    tessellation of x-space whose directional distribution has atoms
+    ``±a_i/‖a_i‖`` with weights ``‖a_i‖`` (Nagel & Weiss 2005; O'Reilly &
+    Tran 2022 simulate STIT this way, by lifting). A cell is cut after an
+    exponential time of rate ``Σ_i width_i``, along ``a_i`` with
+    probability ∝ ``width_i``, at a uniform offset.
+
+    Growth and routing are compiled with numba and cached on disk: the first
+    use on a machine compiles once, and a fresh process then pays only the
+    loading of the cached code. In data mode each cell keeps a box that may
+    be larger than its points' extent, and runs the Mondrian clock of that
+    box; a proposed cut that misses the cell's points tightens the box along
+    that direction and the clock runs on. This is exact, because a Mondrian
+    process restricted to a sub-box is a Mondrian process on that sub-box,
+    and each proposal costs one pass over a single lifted column. Points are
+    routed in k-d order, several in lockstep, one tree at a time. Window
+    mode computes exact cell polytopes in Python, cell by cell, and is meant
+    for small windows and lifetimes.
 
     In data mode every leaf holds training points. In window mode a cell
     may hold none; a point reaching it is predicted by the nearest ancestor
@@ -455,19 +477,25 @@ _SHARED_NOTES = """
 
     References
     ----------
-    Lakshminarayanan, B., Roy, D. M. and Teh, Y. W. (2014). Mondrian forests:
-    efficient online random forests. NeurIPS 27.
+    Roy, D. M. and Teh, Y. W. (2008). The Mondrian process. NeurIPS 21.
 
     Nagel, W. and Weiss, V. (2005). Crack STIT tessellations: characterization
     of stationary random tessellations stable with respect to iteration.
     Advances in Applied Probability 37, 859-883.
+
+    Lakshminarayanan, B., Roy, D. M. and Teh, Y. W. (2014). Mondrian forests:
+    efficient online random forests. NeurIPS 27.
+
+    O'Reilly, E. and Tran, N. M. (2022). Stochastic geometry to generalize the
+    Mondrian process. SIAM Journal on Mathematics of Data Science
+    (arXiv:2002.00797).
 
     Mourtada, J., Gaïffas, S. and Scornet, E. (2020). Minimax optimal rates for
     Mondrian trees and forests. Annals of Statistics 48, 2253-2276.
 
     O'Reilly, E. and Tran, N. M. (2024). Minimax rates for high-dimensional
     random tessellation forests. Journal of Machine Learning Research 25(89),
-    1-32.
+    1-32 (arXiv:2109.10541, 2021).
 
     O'Reilly, E. (2024). Statistical advantages of oblique randomized decision
     trees and forests. arXiv:2407.02458 (risk bounds in terms of the leakage

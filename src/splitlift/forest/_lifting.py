@@ -66,7 +66,7 @@ class Lifting:
 
 
 def _check_direction_matrix(lift, n_features: int) -> np.ndarray:
-    matrix = check_finite_matrix(lift, "lift")
+    matrix = check_finite_matrix(lift, "lift").copy()  # never an alias of the parameter
     if matrix.shape[1] != n_features:
         raise ValueError(
             f"lift has {matrix.shape[1]} columns but X has {n_features} features; pass a "

@@ -4,8 +4,7 @@ A tree lives in arrays indexed by node id. Node 0 is the root, a node's two
 children are consecutive (``right = left + 1``) and every child has a larger
 id than its parent. Per node that is 32 bytes plus the value (8 bytes per
 output): a 16-byte routing record (cut offset, left child, cut direction),
-the split time (float64), the parent and the training count (int32). A
-forest concatenates its trees' arrays; node ids stay local to their tree.
+the split time (float64), the parent and the training count (int32).
 """
 
 from __future__ import annotations
@@ -125,64 +124,48 @@ class StitTree:
 _FIELDS = ("routing", "parent", "split_time", "n_node_samples", "value")
 
 
-class ForestArrays:
-    """The trees of a forest concatenated into flat node arrays.
+class Forest:
+    """The trees of a fitted forest, and routing through them one tree at a time."""
 
-    ``tree_start[t]`` is the first row of tree ``t``. Routing kernels walk
-    the trees one after the other, each over all query points.
-
-    Parameters
-    ----------
-    trees : list of StitTree
-    clock_exponent : int, default 0
-        The trees' times are divided by ``2**clock_exponent`` on the way
-        in: they grew on lifted data rescaled by that power of two (an
-        exact conversion), and the forest keeps times in the data's units.
-    """
-
-    def __init__(self, trees: list[StitTree], clock_exponent: int = 0):
-        sizes = np.array([tree.n_nodes for tree in trees], dtype=np.int64)
-        self.tree_start = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
-        for name in _FIELDS[1:]:
-            setattr(self, name, np.concatenate([getattr(tree, name) for tree in trees]))
-        # records concatenate as raw 16-byte items (numpy's record path is much slower)
-        self.routing = np.concatenate([tree.routing.view(np.complex128) for tree in trees]).view(
-            _compiled.ROUTING_RECORD)
-        self.split_time = times_power_of_two(self.split_time, -clock_exponent)
-        self.lifetimes = times_power_of_two(np.array([tree.lifetime for tree in trees]),
-                                            -clock_exponent)
+    def __init__(self, trees: list[StitTree]):
+        self.trees = trees
 
     @property
     def n_trees(self) -> int:
-        return int(self.tree_start.size - 1)
-
-    def tree(self, index: int) -> StitTree:
-        """Tree ``index`` as a :class:`StitTree` whose arrays are views of the forest's."""
-        rows = slice(self.tree_start[index], self.tree_start[index + 1])
-        return StitTree(**{name: getattr(self, name)[rows] for name in _FIELDS},
-                        lifetime=float(self.lifetimes[index]))
-
-    def trees(self) -> list[StitTree]:
-        return [self.tree(index) for index in range(self.n_trees)]
+        return len(self.trees)
 
     def n_leaves(self) -> np.ndarray:
-        return (np.diff(self.tree_start) + 1) // 2
+        return np.array([tree.n_leaves for tree in self.trees])
 
     def memory_bytes(self) -> int:
         """Bytes held by the node arrays of all trees."""
-        return int(sum(getattr(self, name).nbytes for name in _FIELDS))
+        return int(sum(getattr(tree, name).nbytes for tree in self.trees for name in _FIELDS))
 
     def apply(self, rows: np.ndarray) -> np.ndarray:
-        """Leaf id (local to its tree) of every point in every tree, shape (n, n_trees)."""
-        leaves = np.empty((rows.shape[0], self.n_trees), dtype=np.int32)
-        _compiled.apply_forest(rows, self.tree_start, self.routing, leaves)
-        return leaves
+        """Leaf id of every point in every tree, shape (n, n_trees)."""
+        leaves = np.empty((self.n_trees, rows.shape[0]), dtype=np.int32)
+        for tree, column in zip(self.trees, leaves, strict=True):
+            _compiled.apply_tree(rows, tree.routing, column)
+        return leaves.T
 
     def value_sum(self, rows: np.ndarray) -> np.ndarray:
-        """Sum over trees of the leaf value of every point, shape (n, n_outputs)."""
-        total = np.zeros((rows.shape[0], self.value.shape[1]))
-        _compiled.add_leaf_values(rows, self.tree_start, self.routing, self.value, total)
+        """Sum over trees, in order, of the leaf value of every point, shape (n, n_outputs)."""
+        total = np.zeros((rows.shape[0], self.trees[0].value.shape[1]))
+        for tree in self.trees:
+            _compiled.add_tree_values(rows, tree.routing, tree.value, total)
         return total
+
+
+def on_lifted_clock(tree: StitTree, exponent: int) -> StitTree:
+    """The tree with its times divided by ``2**exponent`` (exactly).
+
+    Trees grow on lifted data divided by ``2**exponent``; their offsets are
+    converted back as they are recorded, their times here, at the end.
+    """
+    return StitTree(routing=tree.routing, parent=tree.parent,
+                    split_time=times_power_of_two(tree.split_time, -exponent),
+                    n_node_samples=tree.n_node_samples, value=tree.value,
+                    lifetime=float(times_power_of_two(np.float64(tree.lifetime), -exponent)))
 
 
 def tree_from_growth(routing, parent, split_time, counts, sums, lifetime: float) -> StitTree:

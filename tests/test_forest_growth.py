@@ -1,0 +1,106 @@
+"""Growth from data: the stale-box construction has the law of the data-extent Mondrian tree."""
+
+import numpy as np
+from scipy import stats
+from sklearn.ensemble import ExtraTreesRegressor
+
+from splitlift.forest import StitForestRegressor
+from splitlift.forest._compiled import EXACT_EXTENT_BELOW
+
+
+def _cells_near_the_root(tree, X, max_depth):
+    """(node, member mask) for every internal node down to ``max_depth``, by following cuts."""
+    cells, pending = [], [(0, np.ones(len(X), bool), 0)]
+    while pending:
+        node, members, depth = pending.pop()
+        if tree.direction[node] < 0 or depth > max_depth:
+            continue
+        cells.append((node, members))
+        goes_left = X[:, tree.direction[node]] <= tree.offset[node]
+        pending.append((tree.left[node], members & goes_left, depth + 1))
+        pending.append((tree.right[node], members & ~goes_left, depth + 1))
+    return cells
+
+
+def test_cut_times_directions_and_offsets_follow_the_extent_of_the_points():
+    # Mondrian process on the extent of a cell's points (Roy & Teh 2008; Lakshminarayanan,
+    # Roy & Teh 2014): the cut comes after Exp(Σ_k w_k) from the cell's birth, along k with
+    # probability w_k / Σ w, at a uniform offset in the points' range along k; w_k is the
+    # points' extent. The compiled growth draws from stale, larger boxes and tightens them
+    # when a cut misses the points; this checks that the result is still that law, on
+    # cells large enough to use the stale boxes. Synthetic uniform points; scipy.stats as
+    # the reference laws; tests at level 1e-3.
+    rng = np.random.default_rng(0)
+    X = rng.uniform(size=(300, 3)) * np.array([1.0, 0.3, 2.0])
+    forest = StitForestRegressor(lifetime=np.inf, n_trees=600, random_state=1)
+    forest.fit(X, rng.normal(size=300))
+    waits, offsets, chosen, probabilities = [], [], [], []
+    for tree in forest.trees_:
+        births = tree.birth_time
+        for node, members in _cells_near_the_root(tree, X, max_depth=3):
+            if members.sum() <= EXACT_EXTENT_BELOW:
+                continue
+            points = X[members]
+            low, widths = points.min(axis=0), np.ptp(points, axis=0)
+            k = tree.direction[node]
+            waits.append((tree.split_time[node] - births[node]) * widths.sum())
+            offsets.append((tree.offset[node] - low[k]) / widths[k])
+            chosen.append(k)
+            probabilities.append(widths / widths.sum())
+    assert len(waits) > 3000
+    assert stats.kstest(waits, stats.expon().cdf).pvalue > 1e-3
+    assert stats.kstest(offsets, stats.uniform().cdf).pvalue > 1e-3
+    # direction counts against their expectation: sums of independent Bernoulli draws,
+    # each standardised count within 4.5 standard deviations
+    probabilities = np.array(probabilities)
+    observed = np.bincount(chosen, minlength=3)
+    expected = probabilities.sum(axis=0)
+    spread = np.sqrt((probabilities * (1 - probabilities)).sum(axis=0))
+    assert np.all(np.abs(observed - expected) < 4.5 * spread)
+
+
+def test_small_cells_measured_exactly_follow_the_same_law():
+    # Cells of at most EXACT_EXTENT_BELOW points measure their extent at once; the same
+    # Mondrian law holds for them (here the whole data set is one such cell).
+    rng = np.random.default_rng(2)
+    X = rng.uniform(size=(EXACT_EXTENT_BELOW, 2))
+    forest = StitForestRegressor(lifetime=np.inf, n_trees=3000, random_state=3)
+    forest.fit(X, rng.normal(size=len(X)))
+    widths = np.ptp(X, axis=0)
+    roots = [(tree.split_time[0], tree.direction[0], tree.offset[0]) for tree in forest.trees_]
+    times, directions, cuts = (np.array(values) for values in zip(*roots, strict=True))
+    assert stats.kstest(times * widths.sum(), stats.expon().cdf).pvalue > 1e-3
+    share = np.mean(directions == 0)
+    expected = widths[0] / widths.sum()
+    assert abs(share - expected) < 4.5 * np.sqrt(expected * (1 - expected) / len(times))
+    along_first = directions == 0
+    relative = (cuts[along_first] - X[:, 0].min()) / widths[0]
+    assert stats.kstest(relative, stats.uniform().cdf).pvalue > 1e-3
+
+
+def test_results_do_not_depend_on_n_jobs_for_grown_trees():
+    rng = np.random.default_rng(4)
+    X = rng.normal(size=(3000, 4))
+    y = X[:, 0] + rng.normal(size=3000)
+    fits = [StitForestRegressor(lifetime=np.inf, n_trees=9, random_state=5, n_jobs=n_jobs)
+            .fit(X, y) for n_jobs in (1, 2)]
+    X_new = rng.normal(size=(5000, 4))
+    np.testing.assert_array_equal(fits[0].predict(X_new), fits[1].predict(X_new))
+    np.testing.assert_array_equal(fits[0].apply(X_new), fits[1].apply(X_new))
+
+
+def test_memory_per_tree_is_below_scikit_learn_for_the_same_leaves():
+    # Reference: scikit-learn's own tree storage (node records and values) for fully grown
+    # trees on the same data; both have one leaf per distinct training point.
+    rng = np.random.default_rng(6)
+    X = rng.normal(size=(2000, 5))
+    y = rng.normal(size=2000)
+    ours = StitForestRegressor(lifetime=np.inf, n_trees=3, random_state=7).fit(X, y)
+    theirs = ExtraTreesRegressor(n_estimators=3, max_features=1, random_state=7).fit(X, y)
+    for tree, reference in zip(ours.trees_, theirs.estimators_, strict=True):
+        assert tree.n_leaves == reference.get_n_leaves() == 2000
+        state = reference.tree_.__getstate__()
+        reference_bytes = state["nodes"].nbytes + state["values"].nbytes
+        our_bytes = sum(getattr(tree, name).nbytes for name in
+                        ("routing", "parent", "split_time", "n_node_samples", "value"))
+        assert our_bytes <= reference_bytes
