@@ -1,7 +1,16 @@
 """Shared fixtures: simulated designs used across the test modules, a local Dask cluster."""
 
+import os
+
 import numpy as np
 import pytest
+from hypothesis import settings
+
+# Property tests explore new random examples on every local run; in CI (the CI
+# variable is set) they replay a fixed derivation so a run is reproducible.
+settings.register_profile("ci", derandomize=True, print_blob=True)
+if os.environ.get("CI"):
+    settings.load_profile("ci")
 
 
 @pytest.fixture

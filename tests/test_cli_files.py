@@ -54,7 +54,7 @@ def test_report_command_with_reference(data_file, tmp_path):
     assert run("fit", str(path), "--target", "strength", "--out", str(lift_path)).returncode == 0
     shown = run("report", str(lift_path), "--reference", str(reference_path))
     assert shown.returncode == 0, shown.stderr
-    assert "reference subspace" in shown.stdout and "angles to estimate" in shown.stdout
+    assert "reference subspace" in shown.stdout and "angles to the estimate" in shown.stdout
 
 
 @pytest.mark.parametrize("estimator", ["SlicedAverageVariance", "HessianDirections",

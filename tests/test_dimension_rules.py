@@ -102,7 +102,7 @@ def test_dimension_zero_gives_an_empty_basis_and_an_even_lift():
     assert lift.subspace_basis_.shape == (4, 0)
     assert lift.lift_.rank() == 4 and lift.lift_.metadata["even_spread"]
     np.testing.assert_allclose(lift.lift_.weights, 1 / lift.lift_.n_directions)
-    assert "no relevant subspace detected" in str(lift.report())
+    assert "No relevant direction was detected (dimension 0)" in str(lift.report())
 
 
 def test_dim_test_table_has_the_documented_columns():
@@ -111,7 +111,7 @@ def test_dim_test_table_has_the_documented_columns():
     test = sl.SlicedInverse(dim="auto").fit(X, y).dim_test_
     assert {"k", "statistic", "df", "p_value"} <= set(test.rows[0])
     assert test.rows[0]["df"] == 6 * 9  # (p - k)(H - k - 1) with H = 10, k = 0
-    assert "dim = 2" in str(test)
+    assert "dimension 2, chosen by sequential chi-square" in str(test)
 
 
 def test_satterthwaite_reduces_to_chi_square_for_equal_weights():

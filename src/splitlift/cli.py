@@ -327,12 +327,13 @@ def main(argv: list[str] | None = None) -> int:
             EXIT_USAGE)
     command = arguments.command
     handler = globals()[f"_run_{command}"]
-    from . import _progress
-
-    _progress.QUIET = _QUIET[0] = arguments.quiet
+    _QUIET[0] = arguments.quiet
     for message in _DEPRECATIONS:
         _say(command, "warning", message)
-    try:
+    try:  # from here on, Ctrl-C (even during the first heavy import) ends with one line
+        from . import _progress
+
+        _progress.QUIET = arguments.quiet
         with _terminate_as_exception(), warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             code = handler(arguments)
