@@ -19,14 +19,26 @@ def test_principal_angles_match_scipy(k, l):
     U, V = generator.standard_normal((7, k)), generator.standard_normal((7, l))
     expected = subspace_angles(U, V)
     # When k + l > d the subspaces meet (dimension count), so the k + l - d smallest
-    # angles are exactly 0. scipy 1.17 takes those from arccos of a cosine near 1,
-    # accurate only to about sqrt(4 eps) = 3e-8 (arccos(1 - 2 eps)); the exact value
-    # replaces it here.
+    # angles are exactly 0. Beside larger angles, scipy 1.17 takes those from arccos
+    # of a cosine near 1, accurate only to about sqrt(4 eps) = 3e-8 (arccos(1 - 2 eps));
+    # the exact value replaces it here.
     meeting = max(0, k + l - 7)
     if meeting:
         assert np.all(expected[-meeting:] < np.sqrt(4 * np.finfo(float).eps))
         expected[-meeting:] = 0.0
     np.testing.assert_allclose(sl.principal_angles(U, V), expected, atol=1e-12)
+
+
+@pytest.mark.parametrize("t", [1e-7, 0.3, 1.2])
+def test_principal_angles_of_subspaces_sharing_a_line(t):
+    # span(e1, e2) and span(e1, cos t e2 + sin t e3) share e1 and meet at angle t
+    # otherwise (closed form by construction): the angles are exactly (t, 0), the zero
+    # one to rounding even beside a large angle.
+    U = np.eye(4)[:, :2]
+    V = np.column_stack([np.eye(4)[:, 0], [0.0, np.cos(t), np.sin(t), 0.0]])
+    angles = sl.principal_angles(U, V)
+    np.testing.assert_allclose(angles[0], t, rtol=1e-12)
+    assert angles[1] < 1e-15
 
 
 def test_principal_angles_closed_form_in_the_plane():

@@ -113,7 +113,7 @@ def subspace_pairs(draw, meeting_allowed):
 def test_principal_angles_match_scipy_at_any_magnitude(pair, exponent_u, exponent_v):
     # Reference: scipy.linalg.subspace_angles on the unscaled bases. Pairs with k + l <= d
     # only: when the subspaces must meet, scipy reports the zero angles via arccos, good
-    # to about 3e-8 only (see test_principal_angles_ignore_the_scale_of_either_basis).
+    # to about 1e-8 only (see test_geometry.test_principal_angles_match_scipy).
     U, V = pair
     angles = sl.principal_angles(U * 10.0**exponent_u, V * 10.0**exponent_v)
     np.testing.assert_allclose(angles, subspace_angles(U, V), atol=1e-10)
@@ -128,11 +128,9 @@ def test_principal_angles_ignore_the_scale_of_either_basis(pair, exponent_u, exp
     U, V = pair
     plain = sl.principal_angles(U, V)
     scaled = sl.principal_angles(U * 10.0**exponent_u, V * 10.0**exponent_v)
-    # The angles come from scipy.linalg.subspace_angles, which takes a zero angle from
-    # the arccos of a cosine near 1. A cosine within 4 ulps (2 eps) of 1 gives
-    # arccos(1 - 2 eps) ~ sqrt(4 eps) = 3.0e-8 rad (Taylor series of arccos at 1);
-    # sqrt(2 eps) = 2.1e-8 is seen in practice, so the tolerance is sqrt(4 eps).
-    tolerance = np.sqrt(4 * EPS)
+    # Angles below 45 degrees come from sines and the others from cosines, both accurate
+    # to rounding (Knyazev & Argentati 2002); tolerance 1e-12 rad.
+    tolerance = 1e-12
     np.testing.assert_allclose(scaled, plain, atol=tolerance)
     meeting = max(0, U.shape[1] + V.shape[1] - U.shape[0])
     if meeting:

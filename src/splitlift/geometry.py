@@ -92,14 +92,25 @@ def principal_angles(U, V) -> np.ndarray:
     Notes
     -----
     The inputs are checked and orthonormalised here (safely at any
-    magnitude, refusing complex or rank-deficient sets); the angles come from
-    :func:`scipy.linalg.subspace_angles`, which uses cosines for large angles
-    and sines for small ones (Björck & Golub 1973; Knyazev & Argentati 2002).
+    magnitude, refusing complex or rank-deficient sets). The cosines are the
+    singular values of ``Q_U^T Q_V`` and the sines those of the part of one
+    basis outside the other's span (Björck & Golub 1973); each angle is
+    taken from its sine when below 45 degrees and from its cosine above, so
+    small and large angles alike are accurate to rounding (Knyazev &
+    Argentati 2002). This is the algorithm of
+    :func:`scipy.linalg.subspace_angles`, except that scipy 1.17 matches the
+    sine-or-cosine choice to the angles in reverse order, so there an angle
+    near 0 beside larger ones comes from an arccos and is good to about
+    1e-8 rad only.
 
     References
     ----------
     Björck, Å. and Golub, G. H. (1973). Numerical methods for computing angles
     between linear subspaces. Mathematics of Computation 27, 579-594.
+
+    Knyazev, A. V. and Argentati, M. E. (2002). Principal angles between
+    subspaces in an A-based scalar product: algorithms and perturbation
+    estimates. SIAM Journal on Scientific Computing 23, 2008-2040.
 
     Examples
     --------
@@ -110,7 +121,14 @@ def principal_angles(U, V) -> np.ndarray:
     """
     left = check_basis(U, "U")
     right = check_basis(V, "V", n_features=left.shape[0])
-    return linalg.subspace_angles(left, right)
+    if left.shape[1] < right.shape[1]:
+        left, right = right, left  # angles are symmetric; project the narrower basis
+    overlap = left.T @ right
+    cosines = linalg.svdvals(overlap)  # descending: smallest angle first
+    sines = linalg.svdvals(right - left @ overlap)  # descending: largest angle first
+    from_cosines = np.arccos(np.clip(cosines[::-1], -1.0, 1.0))
+    from_sines = np.arcsin(np.clip(sines, -1.0, 1.0))
+    return np.where(from_sines < np.pi / 4, from_sines, from_cosines)
 
 
 #: Relative singular-value tolerance below which unit directions count as dependent.
