@@ -170,6 +170,28 @@ def test_forests_fit_through_the_dask_joblib_backend_match_the_default(client):
     np.testing.assert_allclose(predicted_on_cluster, local.predict(X[3000:4000]), rtol=1e-12)
 
 
+def test_the_stit_forest_fit_through_the_dask_joblib_backend_matches_the_default(client):
+    # the same recipe for the project's own forest: its trees are grown in batches on the
+    # workers, from seeds drawn before any batch starts, so the backend changes nothing
+    import joblib
+    from sklearn.pipeline import make_pipeline
+
+    from splitlift.forest import StitForestRegressor
+
+    def model():
+        return make_pipeline(sl.DirectionLift(sl.SlicedInverse(dim=2)),
+                             StitForestRegressor(n_trees=8, n_jobs=-1, random_state=0))
+
+    weights = np.arange(3000) % 3  # weights travel with the rows (a third are zero)
+    local = model().fit(X[:3000], Y[:3000], stitforestregressor__sample_weight=weights)
+    with joblib.parallel_backend("dask"):
+        on_cluster = model().fit(X[:3000], Y[:3000],
+                                 stitforestregressor__sample_weight=weights)
+        predicted_on_cluster = on_cluster.predict(X[3000:4000])
+    assert on_cluster[-1].lifetime_ == local[-1].lifetime_
+    np.testing.assert_array_equal(predicted_on_cluster, local.predict(X[3000:4000]))
+
+
 BAD_INPUT = [
     ("chunks of y differ from X", lambda: sl.SlicedInverse().fit(
         as_dask(X), as_dask(Y, (6000, 6000))), r"chunked differently.*rechunk"),

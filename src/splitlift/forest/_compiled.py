@@ -377,32 +377,40 @@ def _doubled(array):
 
 
 @njit(cache=True, nogil=True)
-def node_sums(parent, leaf_of_point, targets):
-    """Training points and target sums in every node, from the leaf each point ended in."""
+def node_sums(parent, leaf_of_point, targets, weights):
+    """Points, weight totals and weighted target sums in every node.
+
+    Computed from the leaf each point ended in; ``weights`` are the sample
+    weights (all positive; ones when none were given, which leaves every sum
+    exactly as unweighted).
+    """
     n_nodes = parent.size
     counts = np.zeros(n_nodes, np.int32)
+    totals = np.zeros(n_nodes)
     sums = np.zeros((n_nodes, targets.shape[1]))
     for i in range(leaf_of_point.size):
         leaf = leaf_of_point[i]
         counts[leaf] += 1
+        totals[leaf] += weights[i]
         for k in range(targets.shape[1]):
-            sums[leaf, k] += targets[i, k]
+            sums[leaf, k] += weights[i] * targets[i, k]
     for node in range(n_nodes - 1, 0, -1):  # children have larger ids than their parent
         above = parent[node]
         counts[above] += counts[node]
+        totals[above] += totals[node]
         for k in range(targets.shape[1]):
             sums[above, k] += sums[node, k]
-    return counts, sums
+    return counts, totals, sums
 
 
 @njit(cache=True, nogil=True)
-def node_means(parent, counts, sums):
-    """Mean target per node; an empty node takes the mean of its nearest non-empty ancestor."""
+def node_means(parent, totals, sums):
+    """Weighted mean target per node; an empty node takes its nearest non-empty ancestor's."""
     values = np.zeros(sums.shape)
     for node in range(parent.size):  # parents come first
-        if counts[node] > 0:
+        if totals[node] > 0:
             for k in range(sums.shape[1]):
-                values[node, k] = sums[node, k] / counts[node]
+                values[node, k] = sums[node, k] / totals[node]
         elif node > 0:
             values[node] = values[parent[node]]
     return values
@@ -454,7 +462,7 @@ def add_tree_values(rows, routing, value, total):
 
 @njit(cache=True, nogil=True)
 def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point, targets,
-                      grid, total, by_position):
+                      weights, grid, total, by_position):
     """Add one tree's leave-one-out predictions of its training points at every lifetime.
 
     Parameters
@@ -463,6 +471,8 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     leaf_of_point : ndarray of int32, shape (n,)
         Leaf of each training point in the (fully grown) tree.
     targets : ndarray of shape (n, n_outputs)
+    weights : ndarray of shape (n,)
+        Positive sample weights (ones when none were given).
     grid : ndarray, ascending
         Lifetimes, in the units of ``split_time``.
     total : ndarray of shape (n_outputs, n_grid, n)
@@ -479,8 +489,9 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     serves a run of grid lifetimes for all the points of its subtree. The
     points are laid out so that every subtree is a contiguous run, and each
     (point, lifetime) pair is then served exactly once. A point's
-    prediction in a cell leaves the point out, ``(sum - y_i) / (count - 1)``;
-    a cell holding only the point uses its nearest ancestor holding others.
+    prediction in a cell leaves the point out with its whole weight,
+    ``(sum - w_i y_i) / (total - w_i)`` over weighted sums and totals; a cell
+    holding only the point uses its nearest ancestor holding others.
     """
     n_nodes = parent.size
     n_grid = grid.size
@@ -496,6 +507,11 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
         leaf = leaf_of_point[point]
         members[cursor[leaf]] = point
         cursor[leaf] += 1
+    totals = np.zeros(n_nodes)  # weight of the training points in every node
+    for point in range(leaf_of_point.size):
+        totals[leaf_of_point[point]] += weights[point]
+    for node in range(n_nodes - 1, 0, -1):  # children have larger ids than their parent
+        totals[parent[node]] += totals[node]
     holder = np.zeros(n_nodes, np.int64)  # nearest ancestor-or-self with two points or more
     for node in range(1, n_nodes):
         holder[node] = node if counts[node] > 1 else holder[parent[node]]
@@ -514,11 +530,12 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
         if first >= stop or counts[node] == 0:
             continue
         source = holder[node]
-        share = 1.0 / (counts[source] - 1)
         for position in range(start[node], start[node] + counts[node]):
             point = members[position]
+            share = 1.0 / (totals[source] - weights[point])
             for k in range(targets.shape[1]):
-                prediction = (value[source, k] * counts[source] - targets[point, k]) * share
+                prediction = ((value[source, k] * totals[source]
+                               - weights[point] * targets[point, k]) * share)
                 for g in range(first, stop):
                     by_position[k, g, position] = prediction
     for k in range(targets.shape[1]):

@@ -21,7 +21,7 @@ from sklearn.utils._param_validation import Interval, StrOptions
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-from .._validation import check_finite_matrix
+from .._validation import check_finite_matrix, check_sample_weight
 from ..lift import LiftMatrix
 from . import _compiled
 from ._lifetime import lifetime_grid
@@ -118,7 +118,13 @@ class _StitForest(BaseEstimator):
         return float(self.lifetime)
 
     # ------------------------------------------------------------------ fitting
-    def _fit_targets(self, X: np.ndarray, targets: np.ndarray):
+    def _fit_targets(self, X: np.ndarray, targets: np.ndarray, sample_weight=None):
+        weights = check_sample_weight(sample_weight, X.shape[0])
+        if weights is None:
+            weights = np.ones(X.shape[0])
+        else:  # a row of weight zero counts for nothing: not even for the data's extent
+            kept = weights > 0
+            X, targets, weights = X[kept], targets[kept], weights[kept]
         lifting = Lifting(self.lift, X.shape[1])
         window = self._check_window(X)
         lifetime = self._check_lifetime()
@@ -132,10 +138,11 @@ class _StitForest(BaseEstimator):
             center, steps = window[0] / 2 + window[1] / 2, window[1] / 2 - window[0] / 2
         linear, lifted_center = lifting.affine_form(center, np.where(steps > 0, steps, 1.0))
         if window is None:
-            trees, exponent, grid, path = self._grow_on_data(lifted, targets, lifetime, seeds)
+            trees, exponent, grid, path = self._grow_on_data(lifted, targets, weights,
+                                                             lifetime, seeds)
         else:
             trees, exponent, grid, path = self._grow_in_window(
-                linear, lifted_center, steps, lifted, targets, lifetime, seeds)
+                linear, lifted_center, steps, lifted, targets, weights, lifetime, seeds)
         self.lift_matrix_ = linear
         self._lifting = lifting
         self._forest = Forest([on_lifted_clock(tree, exponent) for tree in trees])
@@ -152,7 +159,7 @@ class _StitForest(BaseEstimator):
         self.n_leaves_ = self._forest.n_leaves()
         return self
 
-    def _grow_on_data(self, lifted, targets, lifetime, seeds):
+    def _grow_on_data(self, lifted, targets, weights, lifetime, seeds):
         """Trees grown on the data's extent, on a rescaled clock; with the tuning path."""
         n_samples = lifted.shape[0]
         exponent = binary_exponent(float(np.max(np.abs(lifted))))
@@ -161,6 +168,7 @@ class _StitForest(BaseEstimator):
         rows = np.ascontiguousarray(rescaled[order])
         columns = np.ascontiguousarray(rows.T)
         targets = np.ascontiguousarray(targets[order])
+        weights = np.ascontiguousarray(weights[order])
         root_rate = float(np.ptp(rows, axis=0).sum())
         tuning = lifetime is None and root_rate > 0 and n_samples > 1
         grid = lifetime_grid(root_rate, n_samples, rows.shape[1], "data") if tuning else None
@@ -168,15 +176,17 @@ class _StitForest(BaseEstimator):
             grow_to = np.inf  # the grid ends at inf; without tuning every lifetime is alike
         else:
             grow_to = float(np.ldexp(lifetime, exponent))
-        grown = self._parallel(_grow_data_batch, rows, columns, targets, grow_to, exponent,
-                               seeds)
+        grown = self._parallel(_grow_data_batch, rows, columns, targets, weights, grow_to,
+                               exponent, seeds)
         trees = [tree for tree, _ in grown]
         if not tuning:
             return trees, exponent, None, None
-        chosen, path = self._tune(trees, [leaves for _, leaves in grown], targets, grid)
+        chosen, path = self._tune(trees, [leaves for _, leaves in grown], targets, weights,
+                                  grid)
         return [prune(tree, chosen) for tree in trees], exponent, grid, path
 
-    def _grow_in_window(self, linear, lifted_center, half, lifted, targets, lifetime, seeds):
+    def _grow_in_window(self, linear, lifted_center, half, lifted, targets, weights, lifetime,
+                        seeds):
         """The exact STIT partitions of the window, filled with the training points.
 
         ``half`` holds the window's half sides; its centre is lifted to
@@ -202,16 +212,17 @@ class _StitForest(BaseEstimator):
                                     lifted_center, seeds, prefer="processes")
         leaves = Forest(partitions).apply(lifted)
         leaves = [np.ascontiguousarray(leaves[:, k]) for k in range(len(partitions))]
-        trees = [_filled(tree, leaves[k], targets) for k, tree in enumerate(partitions)]
+        trees = [_filled(tree, leaves[k], targets, weights)
+                 for k, tree in enumerate(partitions)]
         if lifetime is None:
             if lifted.shape[0] < 2:
                 chosen, path = grid[0], None  # one point: every cell predicts the same value
             else:
-                chosen, path = self._tune(trees, leaves, targets, grid)
+                chosen, path = self._tune(trees, leaves, targets, weights, grid)
             trees = [prune(tree, chosen) for tree in trees]
         return trees, exponent, grid, path
 
-    def _tune(self, trees: list[StitTree], leaves: list[np.ndarray], targets, grid):
+    def _tune(self, trees: list[StitTree], leaves: list[np.ndarray], targets, weights, grid):
         """The grid lifetime with the smallest leave-one-out error, and the error path.
 
         Trees are summed in batches of fixed size, in order, so the path is
@@ -227,14 +238,14 @@ class _StitForest(BaseEstimator):
             batches = Parallel(n_jobs=self.n_jobs, prefer="threads", return_as="generator")(
                 delayed(_leave_one_out_batch)(trees[start : start + _TREES_PER_BATCH],
                                               leaves[start : start + _TREES_PER_BATCH],
-                                              outputs, part, grid)
+                                              outputs, part, weights, grid)
                 for start in range(0, len(trees), _TREES_PER_BATCH)
             )
             total = None
             for batch in batches:
                 total = batch if total is None else total + batch
-            errors += ((total / len(trees) - part.T[:, None, :]) ** 2).sum(axis=(0, 2))
-        path = errors / n_samples
+            errors += (weights * (total / len(trees) - part.T[:, None, :]) ** 2).sum(axis=(0, 2))
+        path = errors / weights.sum()
         return float(grid[int(np.argmin(path))]), path
 
     def _parallel(self, batch_function, *args, prefer: str = "threads") -> list:
@@ -330,14 +341,14 @@ def _warn_if_out_of_range(lifetime: float, rescaled: float, exponent: int) -> No
 
 
 # ---------------------------------------------------------------- batch workers
-def _grow_data_batch(rows, columns, targets, lifetime, exponent, seeds):
+def _grow_data_batch(rows, columns, targets, weights, lifetime, exponent, seeds):
     """Grown trees (offsets in lifted units, times on the rescaled clock), with leaves."""
     grown = []
     for seed in seeds:
         routing, parent, split_time, leaf_of_point = _compiled.grow_from_data(
             rows, columns, lifetime, seed, exponent)
-        counts, sums = _compiled.node_sums(parent, leaf_of_point, targets)
-        tree = tree_from_growth(routing, parent, split_time, counts, sums, lifetime)
+        counts, totals, sums = _compiled.node_sums(parent, leaf_of_point, targets, weights)
+        tree = tree_from_growth(routing, parent, split_time, counts, totals, sums, lifetime)
         grown.append((tree, leaf_of_point))
     return grown
 
@@ -353,24 +364,25 @@ def _grow_window_batch(normals, upper, lifetime, exponent, lifted_center, seeds)
         n_nodes = direction.size
         partitions.append(tree_from_growth(
             routing, nodes["parent"], nodes["split_time"], np.zeros(n_nodes, np.int32),
-            np.zeros((n_nodes, 0)), lifetime))
+            np.zeros(n_nodes), np.zeros((n_nodes, 0)), lifetime))
     return partitions
 
 
-def _leave_one_out_batch(trees, leaves, outputs, targets, grid):
+def _leave_one_out_batch(trees, leaves, outputs, targets, weights, grid):
     total = np.zeros((targets.shape[1], grid.size, targets.shape[0]))
     scratch = np.empty_like(total)
     for tree, leaf_of_point in zip(trees, leaves, strict=True):
         value = np.ascontiguousarray(tree.value[:, outputs])
         _compiled.add_leave_one_out(tree.routing, tree.parent, tree.split_time,
-                                    tree.n_node_samples, value, leaf_of_point, targets, grid,
-                                    total, scratch)
+                                    tree.n_node_samples, value, leaf_of_point, targets,
+                                    weights, grid, total, scratch)
     return total
 
 
-def _filled(tree: StitTree, leaf_of_point: np.ndarray, targets: np.ndarray) -> StitTree:
-    counts, sums = _compiled.node_sums(tree.parent, leaf_of_point, targets)
-    return tree_from_growth(tree.routing, tree.parent, tree.split_time, counts, sums,
+def _filled(tree: StitTree, leaf_of_point: np.ndarray, targets: np.ndarray,
+            weights: np.ndarray) -> StitTree:
+    counts, totals, sums = _compiled.node_sums(tree.parent, leaf_of_point, targets, weights)
+    return tree_from_growth(tree.routing, tree.parent, tree.split_time, counts, totals, sums,
                             tree.lifetime)
 
 
@@ -475,6 +487,19 @@ _SHARED_NOTES = """
     cell that holds some. Points outside the window are routed by the same
     cuts, as if the cells extended beyond it.
 
+    Sample weights are frequency weights on the leaf values: a leaf predicts
+    the weighted mean of its training targets (weighted class frequencies
+    for labels), and ``lifetime="auto"`` scores the weighted leave-one-out
+    error, each row left out with its whole weight. Rows of weight zero are
+    dropped before anything else, so they do not even widen the data's
+    extent. A window partition ignores the data, so there an integer weight
+    gives exactly the forest grown on that many copies of the row (up to the
+    order of summation). In data mode, growth visits the cells in an order
+    that depends on how many rows they hold, so copies and weights give
+    other random draws of the same trees. Pass weights in a pipeline with
+    ``pipeline.fit(X, y, stitforestregressor__sample_weight=w)``, or request
+    them through scikit-learn's metadata routing (``set_fit_request``).
+
     References
     ----------
     Roy, D. M. and Teh, Y. W. (2008). The Mondrian process. NeurIPS 21.
@@ -543,13 +568,15 @@ class StitForestRegressor(RegressorMixin, _StitForest):
     """
     )
 
-    def fit(self, X, y):
+    def fit(self, X, y, sample_weight=None):
         """Grow the forest.
 
         Parameters
         ----------
         X : array-like of shape (n_samples, n_features)
         y : array-like of shape (n_samples,)
+        sample_weight : array-like of shape (n_samples,), optional
+            Frequency weights (see the class notes).
 
         Returns
         -------
@@ -557,7 +584,7 @@ class StitForestRegressor(RegressorMixin, _StitForest):
         """
         self._validate_params()
         X, y = validate_data(self, X, y, dtype=np.float64, y_numeric=True)
-        return self._fit_targets(X, y.astype(float)[:, None])
+        return self._fit_targets(X, y.astype(float)[:, None], sample_weight)
 
     def predict(self, X) -> np.ndarray:
         """Mean over trees of the leaf means.
@@ -612,7 +639,7 @@ class StitForestClassifier(ClassifierMixin, _StitForest):
     """
     )
 
-    def fit(self, X, y):
+    def fit(self, X, y, sample_weight=None):
         """Grow the forest.
 
         Parameters
@@ -620,6 +647,9 @@ class StitForestClassifier(ClassifierMixin, _StitForest):
         X : array-like of shape (n_samples, n_features)
         y : array-like of shape (n_samples,)
             Class labels.
+        sample_weight : array-like of shape (n_samples,), optional
+            Frequency weights (see the class notes); leaf class frequencies
+            are weighted.
 
         Returns
         -------
@@ -631,7 +661,7 @@ class StitForestClassifier(ClassifierMixin, _StitForest):
         self.classes_, encoded = np.unique(y, return_inverse=True)
         indicators = np.zeros((y.shape[0], self.classes_.size))
         indicators[np.arange(y.shape[0]), encoded] = 1.0
-        return self._fit_targets(X, indicators)
+        return self._fit_targets(X, indicators, sample_weight)
 
     def predict_proba(self, X) -> np.ndarray:
         """Mean over trees of the leaf class frequencies.

@@ -168,10 +168,11 @@ def on_lifted_clock(tree: StitTree, exponent: int) -> StitTree:
                     lifetime=float(times_power_of_two(np.float64(tree.lifetime), -exponent)))
 
 
-def tree_from_growth(routing, parent, split_time, counts, sums, lifetime: float) -> StitTree:
-    """A :class:`StitTree` from grown node arrays and per-node target sums."""
+def tree_from_growth(routing, parent, split_time, counts, totals, sums,
+                     lifetime: float) -> StitTree:
+    """A :class:`StitTree` from grown node arrays, per-node weight totals and target sums."""
     return StitTree(routing=routing, parent=parent, split_time=split_time,
-                    n_node_samples=counts, value=_compiled.node_means(parent, counts, sums),
+                    n_node_samples=counts, value=_compiled.node_means(parent, totals, sums),
                     lifetime=float(lifetime))
 
 
