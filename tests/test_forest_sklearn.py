@@ -8,6 +8,16 @@ from sklearn.utils.estimator_checks import parametrize_with_checks
 from splitlift.forest import StitForestClassifier, StitForestRegressor
 
 
+def _expected_failures(estimator) -> dict:
+    # In data mode, growth visits cells in an order that depends on how many rows they
+    # hold, so a weight of k and k copies of a row give other random draws of the trees
+    # (the class notes say so; tests/test_forest_weights.py checks exact equality in a
+    # window, where the partition ignores the rows). scikit-learn's own random forest
+    # fails this check too.
+    return {"check_sample_weight_equivalence_on_dense_data":
+            "in data mode, weights and copies of rows give other draws of the trees"}
+
+
 # Reference: scikit-learn's own estimator checks (check_estimator) define the conventions.
 @parametrize_with_checks(
     [
@@ -15,7 +25,8 @@ from splitlift.forest import StitForestClassifier, StitForestRegressor
         StitForestClassifier(n_trees=5),
         StitForestRegressor(n_trees=5, lifetime=np.inf),
         StitForestClassifier(n_trees=5, lifetime=2.0),
-    ]
+    ],
+    expected_failed_checks=_expected_failures,
 )
 def test_scikit_learn_conventions(estimator, check):
     check(estimator)
