@@ -71,6 +71,7 @@ def test_evaluate_reads_numeric_codes_as_classes_on_request(kiln_file, tmp_path,
     ("arguments", "message", "code"),
     [(["--forest", "boosted"], "invalid choice", 2),
      (["--cv", "1"], "--cv must be at least 2", 2),
+     (["--margin", "-1"], "--margin must be a finite number >= 0", 2),
      (["--out", "table.txt"], "tables are written as", 2),
      (["--cv", "200"], "too few for cv = 200 folds", 1)],
 )

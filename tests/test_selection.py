@@ -107,11 +107,27 @@ def test_one_standard_error_rule_prefers_the_simpler_of_near_equal_candidates():
     errors = np.array([[1.0, 1.1, 0.9, 1.0],
                        [0.60, 0.60, 0.48, 0.58],
                        [0.58, 0.55, 0.52, 0.57]])
-    chosen, within = _one_standard_error_choice(candidates, errors)
-    assert chosen == 1 and within.tolist() == [False, True, True]
+    for margin in (0.0, 1.0, 2.0):  # dim 1 beats raw by about 20 paired standard errors
+        chosen, within = _one_standard_error_choice(candidates, errors, margin)
+        assert chosen == 1 and within.tolist() == [False, True, True]
     # raw inputs within one standard error of the best lift: raw wins
     errors[0] = [0.57, 0.60, 0.50, 0.57]
-    assert _one_standard_error_choice(candidates, errors)[0] == 0
+    assert _one_standard_error_choice(candidates, errors, 1.0)[0] == 0
+
+
+def test_a_lift_must_beat_the_raw_inputs_by_the_margin():
+    from splitlift.selection import _Candidate, _one_standard_error_choice
+
+    candidates = [_Candidate("raw inputs", None, None, None, -1),
+                  _Candidate("SIR dim 1", "SIR", 1, False, 0)]
+    # fold differences lift - raw = (-0.1, 0.05, -0.25, -0.1): mean -0.1, sample sd
+    # sqrt(0.015) = 0.1225, standard error 0.0612, so the lift is 1.63 SE lower
+    errors = np.array([[1.0, 1.0, 1.0, 1.0], [0.9, 1.05, 0.75, 0.9]])
+    assert _one_standard_error_choice(candidates, errors, 0.0)[0] == 1
+    assert _one_standard_error_choice(candidates, errors, 1.0)[0] == 1
+    assert _one_standard_error_choice(candidates, errors, 1.6)[0] == 1
+    chosen, within = _one_standard_error_choice(candidates, errors, 1.7)
+    assert chosen == 0 and within.tolist() == [True, False]
 
 
 def test_one_random_state_reproduces_the_search_for_any_n_jobs(rng):

@@ -260,7 +260,8 @@ def _build_parser() -> argparse.ArgumentParser:
     evaluate = _command(commands, "evaluate",
                         "compare raw inputs and lifts by cross-validating a forest",
                         "The raw inputs are always a candidate; a one-standard-error rule "
-                        "favours the simpler one, and the verdict says whether a lift helps.",
+                        "favours the simpler one, a lift must beat the raw inputs by --margin "
+                        "standard errors, and the verdict says whether a lift helps.",
                         "splitlift evaluate data.csv --target y --forest et --out table.csv")
     evaluate.add_argument("data", metavar="DATA", help="CSV, Parquet (with pyarrow) or JSON file")
     evaluate.add_argument("--target", required=True, metavar="COL", help="response column")
@@ -272,6 +273,8 @@ def _build_parser() -> argparse.ArgumentParser:
     evaluate.add_argument("--jobs", type=int, default=1, metavar="N",
                           help="parallel workers (-1: all cores)")
     evaluate.add_argument("--seed", type=int, default=0, help="seed of the folds and forests")
+    evaluate.add_argument("--margin", type=float, default=2.0, metavar="M",
+                          help="standard errors by which a lift must beat the raw inputs")
     _add_table_options(evaluate)
     evaluate.add_argument("--out", metavar="FILE",
                           help="write the table (.csv, .tsv, .json, .parquet)")
@@ -873,6 +876,7 @@ EVALUATE_FORESTS = {"rf": "random_forest", "et": "extra_trees",
 
 
 def _run_evaluate(arguments) -> int:
+    import numpy as np
     import pandas as pd
 
     from .data_files import table_bytes
@@ -881,6 +885,8 @@ def _run_evaluate(arguments) -> int:
 
     if arguments.cv < 2:
         raise UsageError("--cv must be at least 2")
+    if not (arguments.margin >= 0 and np.isfinite(arguments.margin)):
+        raise UsageError(f"--margin must be a finite number >= 0, got {arguments.margin:g}")
     if arguments.jobs is not None and arguments.jobs == 0:
         raise UsageError("--jobs must be a positive number of workers, or -1 for all cores")
     _check_data_suffix("DATA", arguments.data, arguments.sep)
@@ -905,7 +911,8 @@ def _run_evaluate(arguments) -> int:
     if arguments.classify:
         y = y.astype(str)
     search = DirectionLiftCV(forest=EVALUATE_FORESTS[arguments.forest], cv=arguments.cv,
-                             n_jobs=arguments.jobs, random_state=arguments.seed)
+                             n_jobs=arguments.jobs, random_state=arguments.seed,
+                             margin=arguments.margin)
     search.fit(pd.DataFrame(X, columns=names), y)
     summary = search.summary()
     if arguments.out or arguments.plot:
