@@ -119,3 +119,28 @@ def test_no_warning_on_well_conditioned_data(rng):
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         sl.SlicedInverse(dim=1).fit(X, X[:, 0])
+
+
+@pytest.mark.parametrize("n", [3, 17, 1000, 100_001])
+@pytest.mark.parametrize("n_slices", [2, 3, 10, 40])
+def test_order_statistics_equal_numpy_sort(n, n_slices):
+    # Reference: numpy.sort, then the same positions; ties (integer values) included.
+    from splitlift.moments import array_split_starts, order_statistics
+
+    generator = np.random.default_rng(n * 100 + n_slices)
+    for values in (generator.standard_normal(n), generator.integers(0, 7, n).astype(float)):
+        positions = np.unique(np.minimum(array_split_starts(n, n_slices), n - 1))
+        np.testing.assert_array_equal(order_statistics(values, positions),
+                                      np.sort(values)[positions])
+
+
+@pytest.mark.parametrize("n_edges", [1, 9, 32, 33, 200])
+def test_slice_of_equals_searchsorted(n_edges):
+    # Reference: numpy.searchsorted(edges, y, side="right"), values on the edges included.
+    from splitlift.moments import slice_of
+
+    generator = np.random.default_rng(n_edges)
+    edges = np.unique(generator.standard_normal(n_edges))
+    y = np.concatenate([generator.standard_normal(5000), edges, [-np.inf, np.inf]])
+    np.testing.assert_array_equal(slice_of(y, edges), np.searchsorted(edges, y, side="right"))
+    assert slice_of(y.astype(np.float32), edges).dtype == np.intp

@@ -265,7 +265,7 @@ class SliceScheme:
     def labels(self, y: np.ndarray) -> np.ndarray:
         """Slice index of every response value; an unknown class label is an error."""
         if self.kind == "count":
-            return np.searchsorted(self.edges, y.astype(float, copy=False), side="right")
+            return slice_of(y, self.edges)
         positions = np.searchsorted(self.values, y)
         known = positions < self.values.size
         known[known] = self.values[positions[known]] == y[known]
@@ -456,7 +456,7 @@ def equal_count_edges(y: np.ndarray, n_slices: int, weights=None) -> np.ndarray:
     """
     if weights is None:
         starts = array_split_starts(y.size, n_slices)
-        boundaries = np.partition(y, starts)[starts]  # a partial sort, no full argsort
+        boundaries = order_statistics(y, starts)  # partial sorts, no full argsort
         lowest = y.min()
     else:
         order = np.argsort(y)  # ties need no order: only values are read
@@ -473,9 +473,52 @@ def equal_count_edges(y: np.ndarray, n_slices: int, weights=None) -> np.ndarray:
     return edges[1:] if edges.size and edges[0] <= lowest else edges
 
 
+#: Up to this many edges, slices are found by one comparison pass per edge.
+_COMPARED_EDGES = 32
+
+
+def slice_of(y: np.ndarray, edges: np.ndarray) -> np.ndarray:
+    """Slice index of every value: the number of edges at or below it.
+
+    Equal to ``np.searchsorted(edges, y, side="right")``; for a few edges,
+    one vectorised comparison per edge on a byte counter is several times
+    faster than a binary search per value.
+    """
+    y = y.astype(float, copy=False)
+    if edges.size > _COMPARED_EDGES:
+        return np.searchsorted(edges, y, side="right")
+    counter = np.zeros(y.shape, np.uint8)
+    for edge in edges:
+        np.add(counter, y >= edge, out=counter, casting="unsafe")
+    return counter.astype(np.intp)
+
+
+def order_statistics(values: np.ndarray, positions: np.ndarray) -> np.ndarray:
+    """``np.sort(values)[positions]`` for sorted, distinct ``positions``, without a full sort.
+
+    One copy of the values is partitioned in place at the middle wanted
+    position, then each side at its own middle, and so on: every level
+    reads the values once, where numpy's many-``kth`` partition costs
+    several times more.
+    """
+    arranged = np.array(values, copy=True)
+
+    def select(low: int, high: int, first: int, stop: int) -> None:
+        if first >= stop:
+            return
+        middle = (first + stop) // 2
+        kth = int(positions[middle])
+        arranged[low:high].partition(kth - low)
+        select(low, kth, first, middle)
+        select(kth + 1, high, middle + 1, stop)
+
+    select(0, arranged.size, 0, len(positions))
+    return arranged[positions]
+
+
 def slices_from_edges(y: np.ndarray, edges: np.ndarray, weights=None) -> Slices:
     """Assign rows to the slices bounded by ``edges``; slices may come out empty."""
-    labels = np.searchsorted(edges, y.astype(float, copy=False), side="right")
+    labels = slice_of(y, edges)
     counts = np.bincount(labels, weights, minlength=edges.size + 1)
     return Slices(labels, counts, "count", edges=np.asarray(edges, dtype=float))
 
