@@ -714,6 +714,8 @@ def _one_standard_error_choice(candidates, errors: np.ndarray,
     beats_raw = (means < means[raw]) & (np.mean(against_raw, axis=1) < -margin * raw_spread)
     within &= ~lifts | beats_raw
     eligible = np.flatnonzero(within)
+    if eligible.size == 0:  # the best lift missed the margin and raw is not within of it
+        return raw, within
     order = sorted(eligible, key=lambda i: (candidates[i].complexity, means[i], i))
     return int(order[0]), within
 
