@@ -78,7 +78,7 @@ def _forest(label: str, classification: bool, quick: bool):
 def _evaluate_fold(data: RealDataset, train, test, forest_label: str, quick: bool) -> dict:
     """Errors of every feature set on one outer fold, the choice made and its fit time."""
     forest = _forest(forest_label, data.classification, quick)
-    errors, choice, seconds = {}, None, {}
+    errors, choice, seconds, failures = {}, None, {}, {}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         for name, transformer in feature_sets(data, forest, quick).items():
@@ -89,12 +89,13 @@ def _evaluate_fold(data: RealDataset, train, test, forest_label: str, quick: boo
                                                                       data.y[train]))
                 errors[name] = prediction_error(model, data.X[test], data.y[test],
                                                 data.classification)
-            except Exception:  # a lift that cannot be fitted here counts as missing
+            except Exception as error:  # missing in the tables, named below them
                 errors[name] = np.nan
+                failures[name] = f"{type(error).__name__}: {error}"
             if name == CHOICE and np.isfinite(errors[name]):
                 choice = model[0].cv_results_["candidate"][model[0].best_index_]
     return {"data": data.name, "forest": forest_label, "errors": errors, "choice": choice,
-            "seconds": seconds}
+            "seconds": seconds, "failures": failures}
 
 
 def _folds(data: RealDataset, quick: bool) -> list:
@@ -176,6 +177,12 @@ def run_real(quick: bool, out, names=None, n_jobs=-1, forests=tuple(FORESTS)) ->
     for label in forests:
         _write_forest_table(out, label, datasets, summaries)
     _write_verdict_table(out, datasets, summaries, results, forests)
+    failed = [f"  {r['forest']} / {r['data']} / {name}: {message}"
+              for r in records for name, message in r["failures"].items()]
+    results["failures"] = failed
+    if failed:
+        out.write(f"\nfailed fits (shown as '-' above), {len(failed)}:\n"
+                  + "\n".join(dict.fromkeys(failed)) + "\n")
     return results
 
 
