@@ -273,7 +273,7 @@ def _build_parser() -> argparse.ArgumentParser:
     evaluate.add_argument("--jobs", type=int, default=1, metavar="N",
                           help="parallel workers (-1: all cores)")
     evaluate.add_argument("--seed", type=int, default=0, help="seed of the folds and forests")
-    evaluate.add_argument("--margin", type=float, default=2.0, metavar="M",
+    evaluate.add_argument("--margin", type=float, default=1.0, metavar="M",
                           help="standard errors by which a lift must beat the raw inputs")
     _add_table_options(evaluate)
     evaluate.add_argument("--out", metavar="FILE",
