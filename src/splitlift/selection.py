@@ -693,6 +693,20 @@ def _collect(units, results, n_candidates: int, n_folds: int):
     return scores, seconds, widths, messages
 
 
+def _raw_index(candidates) -> int:
+    return next(i for i, c in enumerate(candidates) if c.label is None)
+
+
+def _paired_differences(errors: np.ndarray, reference: int) -> tuple[np.ndarray, np.ndarray]:
+    """Mean fold-by-fold difference of every row from row ``reference``, and its standard
+    error (NaN with one fold)."""
+    differences = errors - errors[reference]
+    n_folds = errors.shape[1]
+    spread = (np.std(differences, axis=1, ddof=1) / np.sqrt(n_folds) if n_folds > 1
+              else np.full(len(errors), np.nan))
+    return np.mean(differences, axis=1), spread
+
+
 def _one_standard_error_choice(candidates, errors: np.ndarray,
                                margin: float) -> tuple[int, np.ndarray]:
     """The simplest candidate within one paired standard error of the best (see Notes).
@@ -702,20 +716,14 @@ def _one_standard_error_choice(candidates, errors: np.ndarray,
     valid = ~np.isnan(errors).any(axis=1)
     means = np.where(valid, np.nanmean(errors, axis=1), np.inf)
     best = int(np.argmin(means))  # the raw inputs come first, so they win ties
-    differences = errors - errors[best]
-    n_folds = errors.shape[1]
-    spread = (np.std(differences, axis=1, ddof=1) / np.sqrt(n_folds) if n_folds > 1
-              else np.zeros(len(candidates)))
+    behind_best, spread = _paired_differences(errors, best)
     # a relative tolerance so that identical candidates count as within
     tolerance = 1e-12 * max(abs(means[best]), 1e-300)
-    within = valid & (np.mean(differences, axis=1) <= spread + tolerance)
-    raw = next(i for i, c in enumerate(candidates) if c.label is None)
+    within = valid & (behind_best <= np.nan_to_num(spread) + tolerance)
+    raw = _raw_index(candidates)
     lifts = np.array([c.label is not None for c in candidates])
-    against_raw = errors - errors[raw]
-    raw_spread = (np.std(against_raw, axis=1, ddof=1) / np.sqrt(n_folds) if n_folds > 1
-                  else np.zeros(len(candidates)))
-    beats_raw = (means < means[raw]) & (np.mean(against_raw, axis=1) < -margin * raw_spread)
-    within &= ~lifts | beats_raw
+    behind_raw, raw_spread = _paired_differences(errors, raw)
+    within &= ~lifts | (behind_raw < -margin * np.nan_to_num(raw_spread))
     eligible = np.flatnonzero(within)
     if eligible.size == 0:  # the best lift missed the margin and raw is not within of it
         return raw, within
@@ -732,14 +740,12 @@ def _results_table(candidates, scores, errors, seconds, widths, messages, within
     failed_folds = np.isnan(scores).sum(axis=1)
     ok = failed_folds == 0
     mean_score = np.where(ok, np.nanmean(np.where(ok[:, None], scores, 0.0), axis=1), np.nan)
-    raw = next(i for i, c in enumerate(candidates) if c.label is None)
-    differences = errors - errors[raw]
+    raw = _raw_index(candidates)
+    behind_raw, raw_spread = _paired_differences(errors, raw)
     baseline = float(np.mean(errors[raw]))
     relative = relative and baseline > 0
     scale = baseline if relative else np.nan
-    change = np.mean(differences, axis=1) / scale
-    change_se = (np.std(differences, axis=1, ddof=1) / np.sqrt(n_folds) / scale
-                 if n_folds > 1 else np.full(n_candidates, np.nan))
+    change, change_se = behind_raw / scale, raw_spread / scale
     results = {
         "candidate": np.array([c.name for c in candidates], dtype=object),
         "param_estimator": np.array([c.label for c in candidates], dtype=object),

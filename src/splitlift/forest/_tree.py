@@ -68,6 +68,11 @@ class StitTree:
         return int(self.parent.size)
 
     @property
+    def nbytes(self) -> int:
+        """Bytes held by the node arrays."""
+        return int(sum(getattr(self, name).nbytes for name in _FIELDS))
+
+    @property
     def is_leaf(self) -> np.ndarray:
         return self.routing["left"] == np.arange(self.n_nodes)
 
@@ -139,7 +144,7 @@ class Forest:
 
     def memory_bytes(self) -> int:
         """Bytes held by the node arrays of all trees."""
-        return int(sum(getattr(tree, name).nbytes for tree in self.trees for name in _FIELDS))
+        return sum(tree.nbytes for tree in self.trees)
 
     def apply(self, rows: np.ndarray) -> np.ndarray:
         """Leaf id of every point in every tree, shape (n, n_trees)."""
