@@ -16,8 +16,11 @@ from splitlift.moments import SliceScheme
 from splitlift.sufficient_statistics import (
     MomentStatistics,
     ScalarMoments,
+    _unshifted_slice_scatters,
+    _unshifted_statistics,
     block_statistics,
     merge_all,
+    signed_scatter,
 )
 
 RNG = np.random.default_rng(20261203)
@@ -152,3 +155,74 @@ def test_incompatible_statistics_refuse_to_merge():
         a.merge(block_statistics(X[300:, :3], Y[300:], scheme=SCHEME))
     with pytest.raises(ValueError, match="different methods"):
         a.merge(statistics(np.arange(300, 900), response=True))
+
+
+# Centred inputs with small offsets: no column's mean dominates its spread, so
+# unweighted blocks take the one-product path (_unshifted_statistics).
+SMALL_OFFSET = X - X.mean(axis=0) + 0.3 * X.std(axis=0)
+
+
+@pytest.mark.parametrize("scheme", [SCHEME, None], ids=["sliced", "unsliced"])
+def test_one_product_path_matches_numpy_and_the_general_path(scheme):
+    assert _unshifted_statistics(SMALL_OFFSET, Y, scheme, None, True) is not None
+    fast = block_statistics(SMALL_OFFSET, Y, scheme=scheme, response=True)
+    # unit weights take the general (shifted, chunked) path
+    general = block_statistics(SMALL_OFFSET, Y, np.ones(900), scheme=scheme, response=True)
+    # numpy reference: np.cov (bias=True) and the co-moments' definition summed directly
+    np.testing.assert_allclose(fast.covariance, np.cov(SMALL_OFFSET.T, bias=True), rtol=1e-12)
+    np.testing.assert_allclose(fast.mean, SMALL_OFFSET.mean(axis=0), rtol=1e-12)
+    e, u = Y - Y.mean(), SMALL_OFFSET - SMALL_OFFSET.mean(axis=0)
+    np.testing.assert_allclose(fast.response.cross, u.T @ e, rtol=1e-11)
+    np.testing.assert_allclose(fast.response.weighted_scatter,
+                               np.einsum("i,ij,ik->jk", e, u, u), rtol=1e-11)
+    if scheme is not None:
+        labels = scheme.labels(Y)
+        for h in range(scheme.n_slices):
+            np.testing.assert_allclose(fast.slices.absolute_mean[h],
+                                       SMALL_OFFSET[labels == h].mean(axis=0), rtol=1e-12)
+        np.testing.assert_allclose(fast.deviations(fast.slices),
+                                   general.deviations(general.slices), rtol=1e-11, atol=1e-12)
+    np.testing.assert_allclose(fast.covariance, general.covariance, rtol=1e-12)
+    np.testing.assert_allclose(fast.response.weighted_scatter, general.response.weighted_scatter,
+                               rtol=1e-11)
+
+
+def test_save_slice_scatters_path_matches_numpy_and_the_general_path():
+    assert _unshifted_slice_scatters(SMALL_OFFSET, Y, SCHEME, None, False) is not None
+    fast = block_statistics(SMALL_OFFSET, Y, scheme=SCHEME, slice_scatter=True)
+    general = block_statistics(SMALL_OFFSET, Y, np.ones(900), scheme=SCHEME, slice_scatter=True)
+    assert_same(fast, general, rtol=1e-11)
+    # numpy reference: np.cov (bias=True) overall and within each slice
+    np.testing.assert_allclose(fast.covariance, np.cov(SMALL_OFFSET.T, bias=True), rtol=1e-12)
+    labels = SCHEME.labels(Y)
+    for h in range(SCHEME.n_slices):
+        rows = labels == h
+        np.testing.assert_allclose(fast.slices.scatter[h] / rows.sum(),
+                                   np.cov(SMALL_OFFSET[rows].T, bias=True), rtol=1e-11)
+    assert _unshifted_slice_scatters(X, Y, SCHEME, None, False) is None  # mean 10, sd ~2
+
+
+def test_large_means_or_extreme_columns_leave_the_one_product_path():
+    assert _unshifted_statistics(X, Y, SCHEME, None, False) is None  # column 4: mean 10, sd ~2
+    tiny = SMALL_OFFSET * 2.0**-500  # squares underflow the safe range
+    assert _unshifted_statistics(tiny, Y, SCHEME, None, False) is None
+    huge = SMALL_OFFSET * 2.0**600  # squares overflow: SAVE's path detects it afterwards
+    assert _unshifted_slice_scatters(huge, Y, SCHEME, None, False) is None
+    save = block_statistics(huge, Y, scheme=SCHEME, slice_scatter=True)
+    scale = np.outer(save.column_scale, save.column_scale) * 2.0**-1200
+    np.testing.assert_allclose(save.covariance * scale, np.cov(SMALL_OFFSET.T, bias=True),
+                               rtol=1e-12)
+    stats = block_statistics(tiny, Y, scheme=SCHEME)  # moments of tiny / column_scale
+    scale = np.outer(stats.column_scale, stats.column_scale) * 2.0**1000
+    np.testing.assert_allclose(stats.covariance * scale, np.cov(SMALL_OFFSET.T, bias=True),
+                               rtol=1e-12)
+
+
+def test_signed_scatter_over_many_chunks(monkeypatch):
+    import splitlift.sufficient_statistics as module
+
+    monkeypatch.setattr(module, "_SIGNED_CHUNK_ELEMENTS", 64)  # 16 rows per chunk
+    e = Y - Y.mean()
+    e[::7] = 0.0  # zero weights belong to neither part
+    np.testing.assert_allclose(signed_scatter(X, e), np.einsum("i,ij,ik->jk", e, X, X),
+                               rtol=1e-11, atol=1e-9)

@@ -34,8 +34,9 @@ class CollinearityWarning(UserWarning):
     """The input covariance is singular or nearly so; estimation used its well-conditioned part."""
 
 
-def _row_chunks(n_rows: int, n_columns: int) -> Iterator[slice]:
-    step = max(1, _CHUNK_ELEMENTS // max(n_columns, 1))
+def _row_chunks(n_rows: int, n_columns: int, elements: int = _CHUNK_ELEMENTS
+                ) -> Iterator[slice]:
+    step = max(1, elements // max(n_columns, 1))
     for start in range(0, n_rows, step):
         yield slice(start, min(start + step, n_rows))
 

@@ -42,6 +42,10 @@ from .moments import (
     weighted_mean,
 )
 
+# Rows per chunk of signed_scatter: large enough for an efficient symmetric
+# product, small enough to stay in cache.
+_SIGNED_CHUNK_ELEMENTS = 1 << 19
+
 # Column sums of squares inside this range cannot overflow or underflow in
 # any product the methods form; outside it the block is rescaled by powers
 # of two (power_of_two_scale), which is exact.
@@ -225,6 +229,24 @@ class ResponseMoments:
         """Co-moments of ``y`` with the rows of ``X``, whose moments are ``inputs``."""
         response = ScalarMoments.of(y, weights)
         return cls.about(X, y, weights, inputs.absolute_mean[0], response.raw_mean, response)
+
+    @classmethod
+    def from_products(cls, X: np.ndarray, response: ScalarMoments, centred: np.ndarray,
+                      mean: np.ndarray, raw_cross: np.ndarray) -> ResponseMoments:
+        """Unweighted co-moments from uncentred products, for inputs whose means do not
+        dominate their spread (:func:`_shift_for` gives zero).
+
+        With ``e = y - ȳ`` (``centred``; ``response`` holds the moments of y), ``c``
+        the input means and ``g = Σ e x`` (``raw_cross``):
+        ``Σ e (x - c) = g - (Σ e) c`` and ``Σ e (x - c)(x - c)^T = Σ e x x^T - g c^T
+        - c g^T + (Σ e) c c^T``; under that condition the correction terms are no
+        larger than the result's scale, so at most a digit is lost, as in
+        :func:`splitlift.moments.scatter_about`.
+        """
+        total = float(centred.sum())
+        scatter = (signed_scatter(X, centred) - _outer(raw_cross, mean) - _outer(mean, raw_cross)
+                   + total * _outer(mean, mean))
+        return cls(response, raw_cross - total * mean, scatter)
 
     @classmethod
     def about(cls, X: np.ndarray, y: np.ndarray, weights, centre: np.ndarray,
@@ -420,6 +442,24 @@ def safe_column_scale(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return scale, np.einsum("ij,ij->j", X / scale, X / scale)
 
 
+def signed_scatter(X: np.ndarray, signed_weights: np.ndarray) -> np.ndarray:
+    """``Σ e_i x_i x_i^T`` for weights of either sign, as two symmetric rank-k updates.
+
+    Rows with positive and negative weights are gathered (in cache-sized
+    chunks) and scaled by ``sqrt|e|``, so each part is a symmetric product
+    ``B^T B``, which BLAS forms in half the work of a general product.
+    """
+    d = X.shape[1]
+    positive, negative = np.zeros((d, d)), np.zeros((d, d))
+    for rows in _row_chunks(X.shape[0], d, _SIGNED_CHUNK_ELEMENTS):
+        weights = signed_weights[rows]
+        for part, keep in ((positive, weights > 0), (negative, weights < 0)):
+            block = np.compress(keep, X[rows], axis=0)
+            block *= np.sqrt(np.abs(weights[keep]))[:, None]
+            part += block.T @ block
+    return positive - negative
+
+
 def _shift_for(mean: np.ndarray, squares: np.ndarray, n_rows: int) -> np.ndarray:
     """Zero while no column's mean dominates its spread (raw sums lose at most a digit,
     as in :func:`splitlift.moments.scatter_about`), else the block's mean."""
@@ -482,6 +522,11 @@ def block_statistics(X: np.ndarray, y=None, weights=None, *, scheme: SliceScheme
         labels = None if labels is None else labels[kept]
     X = np.asarray(X, dtype=np.float64)
     n, d = X.shape
+    if weights is None and n:
+        fast = (_unshifted_slice_scatters(X, y, scheme, labels, response) if slice_scatter
+                else _unshifted_statistics(X, y, scheme, labels, response))
+        if fast is not None:
+            return fast
     column_scale, squares = safe_column_scale(X)
     if not np.all(column_scale == 1.0):
         X = X / column_scale
@@ -516,6 +561,84 @@ def block_statistics(X: np.ndarray, y=None, weights=None, *, scheme: SliceScheme
     if response:
         moments = ResponseMoments.of(X, np.asarray(y, dtype=np.float64), weights, inputs)
     return MomentStatistics(column_scale, inputs, slices, scheme, moments)
+
+
+def _unshifted_statistics(X, y, scheme, labels, response: bool) -> MomentStatistics | None:
+    """Unweighted statistics from one symmetric product and one more pass, or None.
+
+    The common case: every column's sum of squares lies in the safe range and
+    no column's mean dominates its spread, so uncentred sums are accurate
+    (see :func:`_shift_for`). The sums of squares are then the diagonal of
+    ``X^T X``, and the column sums come with the slice sums (SIR) or the
+    response cross-products (pHd) instead of in passes of their own. None
+    sends the caller down the general, shifted path.
+    """
+    n, d = X.shape
+    second = X.T @ X
+    squares = np.diag(second)
+    low, high = _SAFE_SQUARES
+    if not np.all((squares >= low) & (squares <= high)):  # False for NaN
+        return None
+    groups = raw_cross = response_moments = centred = None
+    if response:
+        y = np.asarray(y, dtype=np.float64)
+        response_moments = ScalarMoments.of(y)
+        centred = y - response_moments.raw_mean
+    if scheme is not None:
+        labels = scheme.labels(y) if labels is None else labels
+        groups = slice_sums(X, labels, scheme.n_slices)
+        sums = groups.sum(axis=0)
+        raw_cross = None if centred is None else centred @ X
+    elif centred is not None:
+        weights = np.empty((2, n))  # rows (1, e): both sums in one pass over X
+        weights[0], weights[1] = 1.0, centred
+        sums, raw_cross = weights @ X
+    else:
+        sums = X.sum(axis=0)
+    mean = sums / n
+    if np.any(_shift_for(mean, squares, n)):
+        return None
+    zero = np.zeros(d)
+    inputs = GroupMoments(np.array([float(n)]), np.array([n]), zero, mean[None],
+                          (second - n * np.outer(mean, mean))[None])
+    slices = moments = None
+    if scheme is not None:
+        rows = np.bincount(labels, minlength=scheme.n_slices)
+        totals = rows.astype(float)
+        means = np.divide(groups, totals[:, None], out=np.zeros_like(groups),
+                          where=totals[:, None] > 0)
+        slices = GroupMoments(totals, rows, zero, means, None)
+    if response:
+        moments = ResponseMoments.from_products(X, response_moments, centred, mean, raw_cross)
+    return MomentStatistics(np.ones(d), inputs, slices, scheme, moments)
+
+
+def _unshifted_slice_scatters(X, y, scheme, labels, response: bool
+                              ) -> MomentStatistics | None:
+    """SAVE's unweighted statistics straight from the slices' own scatters, or None.
+
+    The slices' symmetric products add up to one ``X^T X``, and pooling
+    them gives the inputs' moments, so no pass of its own computes the
+    column means and squares; these are checked afterwards, as in
+    :func:`_unshifted_statistics`.
+    """
+    n, d = X.shape
+    labels = scheme.labels(y) if labels is None else labels
+    with np.errstate(over="ignore", invalid="ignore"):  # extreme columns: checked below
+        totals, means, scatters = slice_scatters(X, labels, scheme.n_slices)
+    rows = np.bincount(labels, minlength=scheme.n_slices)
+    slices = GroupMoments(totals, rows, np.zeros(d), means, scatters)
+    inputs = slices.pooled()
+    with np.errstate(over="ignore", invalid="ignore"):
+        squares = np.diag(inputs.scatter[0]) + n * inputs.mean[0] ** 2
+    low, high = _SAFE_SQUARES
+    if not np.all((squares >= low) & (squares <= high)) or np.any(
+            _shift_for(inputs.mean[0], squares, n)):
+        return None
+    moments = None
+    if response:
+        moments = ResponseMoments.of(X, np.asarray(y, dtype=np.float64), None, inputs)
+    return MomentStatistics(np.ones(d), inputs, slices, scheme, moments)
 
 
 def _empty(d: int, shift: np.ndarray) -> GroupMoments:
