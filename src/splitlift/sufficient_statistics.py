@@ -624,12 +624,11 @@ def _unshifted_slice_scatters(X, y, scheme, labels, response: bool
     """
     n, d = X.shape
     labels = scheme.labels(y) if labels is None else labels
+    rows = np.bincount(labels, minlength=scheme.n_slices)
     with np.errstate(over="ignore", invalid="ignore"):  # extreme columns: checked below
         totals, means, scatters = slice_scatters(X, labels, scheme.n_slices)
-    rows = np.bincount(labels, minlength=scheme.n_slices)
-    slices = GroupMoments(totals, rows, np.zeros(d), means, scatters)
-    inputs = slices.pooled()
-    with np.errstate(over="ignore", invalid="ignore"):
+        slices = GroupMoments(totals, rows, np.zeros(d), means, scatters)
+        inputs = slices.pooled()
         squares = np.diag(inputs.scatter[0]) + n * inputs.mean[0] ** 2
     low, high = _SAFE_SQUARES
     if not np.all((squares >= low) & (squares <= high)) or np.any(
