@@ -209,7 +209,8 @@ def test_large_means_or_extreme_columns_leave_the_one_product_path():
     huge = SMALL_OFFSET * 2.0**600  # squares overflow: SAVE's path detects it afterwards
     assert _unshifted_slice_scatters(huge, Y, SCHEME, None, False) is None
     save = block_statistics(huge, Y, scheme=SCHEME, slice_scatter=True)
-    scale = np.outer(save.column_scale, save.column_scale) * 2.0**-1200
+    unit = save.column_scale * 2.0**-600
+    scale = np.outer(unit, unit)
     np.testing.assert_allclose(save.covariance * scale, np.cov(SMALL_OFFSET.T, bias=True),
                                rtol=1e-12)
     stats = block_statistics(tiny, Y, scheme=SCHEME)  # moments of tiny / column_scale
