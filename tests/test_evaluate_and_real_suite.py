@@ -36,7 +36,7 @@ def test_evaluate_prints_the_table_and_verdict_and_writes_csv(kiln_file, tmp_pat
                  "--out", str(out))
     assert result.returncode == 0, result.stderr
     assert "raw inputs" in result.stdout and "ADE dim 1 + inputs" in result.stdout
-    assert "(3-fold CV of ExtraTreesRegressor)" in result.stdout
+    assert "(3-fold CV repeated 2 times of ExtraTreesRegressor)" in result.stdout
     table = pd.read_csv(out)
     assert table["candidate"].iloc[0] == "raw inputs" and table["chosen"].sum() == 1
     assert {"cv_error", "cv_error_sd", "change_vs_raw", "change_se", "status"} <= set(
@@ -72,6 +72,7 @@ def test_evaluate_reads_numeric_codes_as_classes_on_request(kiln_file, tmp_path,
     [(["--forest", "boosted"], "invalid choice", 2),
      (["--cv", "1"], "--cv must be at least 2", 2),
      (["--margin", "-1"], "--margin must be a finite number >= 0", 2),
+     (["--repeats", "0"], "--repeats must be at least 1", 2),
      (["--out", "table.txt"], "tables are written as", 2),
      (["--cv", "200"], "too few for cv = 200 folds", 1)],
 )

@@ -131,6 +131,42 @@ def test_a_lift_must_beat_the_raw_inputs_by_the_margin():
     assert chosen == 0 and within.tolist() == [False, False]
 
 
+def test_corrected_standard_error_follows_nadeau_bengio():
+    from splitlift.selection import _Candidate, _one_standard_error_choice, _standard_error
+
+    # the same differences as above: sample sd sqrt(0.015) over J = 4 splits; with
+    # n_test/n_train = 1/4 the corrected standard error is sd sqrt(1/4 + 1/4)
+    # (Nadeau & Bengio 2003), 0.0866 instead of 0.0612: the lift is 1.155 SE lower
+    differences = np.array([[-0.1, 0.05, -0.25, -0.1]])
+    assert _standard_error(differences, 0.25)[0] == pytest.approx(np.sqrt(0.015 * 0.5))
+    assert _standard_error(differences, 0.0)[0] == pytest.approx(np.sqrt(0.015 / 4))
+    candidates = [_Candidate("raw inputs", None, None, None, -1),
+                  _Candidate("SIR dim 1", "SIR", 1, False, 0)]
+    errors = np.array([[1.0, 1.0, 1.0, 1.0], [0.9, 1.05, 0.75, 0.9]])
+    assert _one_standard_error_choice(candidates, errors, 1.1, 0.25)[0] == 1
+    assert _one_standard_error_choice(candidates, errors, 1.2, 0.25)[0] == 0
+
+
+def test_integer_cv_is_repeated_and_a_splitter_is_not(rng):
+    from sklearn.model_selection import KFold
+
+    X, y = ridge_problem(rng, n=120, d=4)
+    search = small_search().set_params(n_repeats=2).fit(X, y)
+    assert search.n_splits_ == 6 and "split5_test_score" in search.cv_results_
+    assert "3-fold CV repeated 2 times" in search.verdict_
+    # the first repeat is the unrepeated split (the same shuffle of the same seed)
+    once = small_search().set_params(n_repeats=1).fit(X, y)
+    for fold in range(3):
+        np.testing.assert_array_equal(once.cv_results_[f"split{fold}_test_score"],
+                                      search.cv_results_[f"split{fold}_test_score"])
+    splitter = small_search().set_params(cv=KFold(3)).fit(X, y)
+    assert splitter.n_splits_ == 3
+    with pytest.raises(ValueError, match="n_repeats=2 repeats an integer cv"):
+        small_search().set_params(cv=KFold(3), n_repeats=2).fit(X, y)
+    sem = search.cv_results_["sem_test_error"]
+    assert np.all(sem > search.cv_results_["std_test_error"] / np.sqrt(6))
+
+
 def test_one_random_state_reproduces_the_search_for_any_n_jobs(rng):
     X, y = ridge_problem(rng, n=240, d=5)
     serial = small_search(n_jobs=1).fit(X, y)
@@ -218,7 +254,8 @@ def test_a_candidate_failing_on_some_folds_is_reported_not_raised(rng):
     search = small_search(estimators={"flaky": flaky, "SIR": sl.SlicedInverse()}).fit(X, y)
     table = pd.DataFrame(search.cv_results_)
     failed = table[table["param_estimator"] == "flaky"]
-    assert failed["status"].str.startswith("failed on 1 of 3 folds: RuntimeError").all()
+    # held out once in each of the two repeats of the three folds
+    assert failed["status"].str.startswith("failed on 2 of 6 folds: RuntimeError").all()
     assert failed["mean_test_score"].isna().all()
     assert search.best_params_["estimator"] != "flaky"
     assert "2 candidates failed" in search.verdict_

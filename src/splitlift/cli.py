@@ -268,6 +268,8 @@ def _build_parser() -> argparse.ArgumentParser:
     evaluate.add_argument("--forest", choices=sorted(EVALUATE_FORESTS), default="rf",
                           help="downstream forest")
     evaluate.add_argument("--cv", type=int, default=5, metavar="K", help="folds")
+    evaluate.add_argument("--repeats", type=int, default=2, metavar="R",
+                          help="repeats of the K folds, each with a fresh shuffle")
     evaluate.add_argument("--classify", action="store_true",
                           help="read a numeric target as class labels")
     evaluate.add_argument("--jobs", type=int, default=1, metavar="N",
@@ -885,6 +887,8 @@ def _run_evaluate(arguments) -> int:
 
     if arguments.cv < 2:
         raise UsageError("--cv must be at least 2")
+    if arguments.repeats < 1:
+        raise UsageError(f"--repeats must be at least 1, got {arguments.repeats}")
     if not (arguments.margin >= 0 and np.isfinite(arguments.margin)):
         raise UsageError(f"--margin must be a finite number >= 0, got {arguments.margin:g}")
     if arguments.jobs is not None and arguments.jobs == 0:
@@ -912,7 +916,7 @@ def _run_evaluate(arguments) -> int:
         y = y.astype(str)
     search = DirectionLiftCV(forest=EVALUATE_FORESTS[arguments.forest], cv=arguments.cv,
                              n_jobs=arguments.jobs, random_state=arguments.seed,
-                             margin=arguments.margin)
+                             margin=arguments.margin, n_repeats=arguments.repeats)
     search.fit(pd.DataFrame(X, columns=names), y)
     summary = search.summary()
     if arguments.out or arguments.plot:

@@ -360,8 +360,8 @@ def _plottable_response(y, n_samples: int) -> tuple[np.ndarray, np.ndarray | Non
 def plot_selection(search, path, title: str | None = None) -> Path:
     """Cross-validated error of every candidate of a fitted ``DirectionLiftCV``, with error bars.
 
-    Bars show ``mean_test_error`` with ± one standard error over folds
-    (``std_test_error / sqrt(n_splits_)``); the chosen candidate is
+    Bars show ``mean_test_error`` with ± one standard error
+    (``sem_test_error``, corrected for shared training rows); the chosen candidate is
     highlighted, the raw inputs' error is a dashed line, and a failed
     candidate gets no bar but its status.
 
@@ -379,7 +379,7 @@ def plot_selection(search, path, title: str | None = None) -> Path:
     check_is_fitted(search, "cv_results_")
     results = search.cv_results_
     errors = np.asarray(results["mean_test_error"], dtype=float)
-    spread = np.asarray(results["std_test_error"], dtype=float) / np.sqrt(search.n_splits_)
+    spread = np.asarray(results["sem_test_error"], dtype=float)
     ok = np.array([status == "ok" for status in results["status"]])
     positions = np.arange(len(errors))[::-1]  # raw inputs at the top
     colours = [_CHOSEN_COLOUR if index == search.best_index_ else
@@ -396,7 +396,7 @@ def plot_selection(search, path, title: str | None = None) -> Path:
             axes.text(0.0, position, f"  {status}"[:80], va="center", fontsize="small",
                       color=_INVALID_COLOUR)
     axes.set_yticks(positions, [str(name) for name in results["candidate"]])
-    axes.set_xlabel(f"cross-validated error, ± 1 standard error ({search.n_splits_} folds)")
+    axes.set_xlabel(f"cross-validated error, ± 1 standard error ({search.n_splits_} splits)")
     axes.set_title(title or "candidates; the chosen one highlighted")
     axes.legend(loc="lower right", fontsize="small")
     figure.tight_layout()
