@@ -462,7 +462,7 @@ def add_tree_values(rows, routing, value, total):
 
 @njit(cache=True, nogil=True)
 def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point, targets,
-                      weights, grid, total, by_position):
+                      weights, grid, total):
     """Add one tree's leave-one-out predictions of its training points at every lifetime.
 
     Parameters
@@ -476,10 +476,8 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     grid : ndarray, ascending
         Lifetimes, in the units of ``split_time``.
     total : ndarray of shape (n_outputs, n_grid, n)
-        Accumulates the predictions (one row of points per output and
-        lifetime: the scatter below then stays within the cache).
-    by_position : ndarray of shape (n_outputs, n_grid, n)
-        Scratch space (every entry is written before it is read).
+        Accumulates the predictions as differences along the lifetimes: its
+        cumulative sum over axis 1 is the sum of the predictions.
 
     Notes
     -----
@@ -488,7 +486,8 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     same tree pruned; Lakshminarayanan, Roy & Teh 2014), so every node
     serves a run of grid lifetimes for all the points of its subtree. The
     points are laid out so that every subtree is a contiguous run, and each
-    (point, lifetime) pair is then served exactly once. A point's
+    (point, lifetime) pair is then served exactly once; a run of lifetimes
+    costs two entries of the difference array, not one per lifetime. A point's
     prediction in a cell leaves the point out with its whole weight,
     ``(sum - w_i y_i) / (total - w_i)`` over weighted sums and totals; a cell
     holding only the point uses its nearest ancestor holding others.
@@ -515,7 +514,6 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     holder = np.zeros(n_nodes, np.int64)  # nearest ancestor-or-self with two points or more
     for node in range(1, n_nodes):
         holder[node] = node if counts[node] > 1 else holder[parent[node]]
-    # predictions by position first (runs of a subtree are contiguous), then by point
     # node serves grid[first:stop]; its first is where its parent's run stopped
     stops = np.empty(n_nodes, np.int64)
     for node in range(n_nodes):
@@ -536,12 +534,9 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
             for k in range(targets.shape[1]):
                 prediction = ((value[source, k] * totals[source]
                                - weights[point] * targets[point, k]) * share)
-                for g in range(first, stop):
-                    by_position[k, g, position] = prediction
-    for k in range(targets.shape[1]):
-        for g in range(n_grid):
-            for position in range(leaf_of_point.size):
-                total[k, g, members[position]] += by_position[k, g, position]
+                total[k, first, point] += prediction
+                if stop < n_grid:
+                    total[k, stop, point] -= prediction
 
 
 @njit(cache=True, nogil=True)
@@ -560,22 +555,26 @@ def prune_tree(routing, parent, split_time, counts, value, lifetime):
     pruned_split = np.empty(kept)
     pruned_counts = np.empty(kept, np.int32)
     pruned_value = np.empty((kept, value.shape[1]))
-    for node in range(n_nodes):
+    n_outputs = value.shape[1]
+    for node in range(n_nodes):  # field by field: whole-record and row copies cost more
         target = new_id[node]
         if target < 0:
             continue
+        record = pruned[target]
         if routing[node].left != node and split_time[node] <= lifetime:
-            pruned[target] = routing[node]
-            pruned[target].left = new_id[routing[node].left]
+            record.offset = routing[node].offset
+            record.left = new_id[routing[node].left]
+            record.direction = routing[node].direction
             pruned_split[target] = split_time[node]
         else:
-            pruned[target].offset = np.inf
-            pruned[target].left = target
-            pruned[target].direction = 0
+            record.offset = np.inf
+            record.left = target
+            record.direction = 0
             pruned_split[target] = np.inf
         pruned_parent[target] = -1 if node == 0 else new_id[parent[node]]
         pruned_counts[target] = counts[node]
-        pruned_value[target] = value[node]
+        for k in range(n_outputs):
+            pruned_value[target, k] = value[node, k]
     return pruned, pruned_parent, pruned_split, pruned_counts, pruned_value
 
 

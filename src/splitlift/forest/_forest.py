@@ -369,14 +369,14 @@ def _grow_window_batch(normals, upper, lifetime, exponent, lifted_center, seeds)
 
 
 def _leave_one_out_batch(trees, leaves, outputs, targets, weights, grid):
-    total = np.zeros((targets.shape[1], grid.size, targets.shape[0]))
-    scratch = np.empty_like(total)
+    """Sum over ``trees`` of the leave-one-out predictions, shape (outputs, grid, n)."""
+    differences = np.zeros((targets.shape[1], grid.size, targets.shape[0]))
     for tree, leaf_of_point in zip(trees, leaves, strict=True):
         value = np.ascontiguousarray(tree.value[:, outputs])
         _compiled.add_leave_one_out(tree.routing, tree.parent, tree.split_time,
                                     tree.n_node_samples, value, leaf_of_point, targets,
-                                    weights, grid, total, scratch)
-    return total
+                                    weights, grid, differences)
+    return np.cumsum(differences, axis=1)
 
 
 def _filled(tree: StitTree, leaf_of_point: np.ndarray, targets: np.ndarray,
