@@ -183,7 +183,9 @@ class _StitForest(BaseEstimator):
             return trees, exponent, None, None
         chosen, path = self._tune(trees, [leaves for _, leaves in grown], targets, weights,
                                   grid)
-        return [prune(tree, chosen) for tree in trees], exponent, grid, path
+        if not np.isinf(chosen):  # at inf every grown tree is its own pruned tree
+            trees = [prune(tree, chosen) for tree in trees]
+        return trees, exponent, grid, path
 
     def _grow_in_window(self, linear, lifted_center, half, lifted, targets, weights, lifetime,
                         seeds):
