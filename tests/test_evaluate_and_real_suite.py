@@ -109,3 +109,23 @@ def test_real_suite_harness_runs_and_reports_every_feature_set():
         assert needle in text
     summary = results["summaries"]["ET/grunfeld"]
     assert summary["n_folds"] == 3 and np.isfinite(summary["change"]["CV choice"])
+
+
+def test_a_loss_on_a_single_fold_is_within_one_standard_error():
+    from splitlift.bench.real import CHOICE, _outcome_counts, _summarise
+
+    # one fold of ten differs by d: the mean difference d/10 equals its standard error
+    # (sample sd d/sqrt(10), over sqrt(10)) exactly, so it is "within one SE", whatever
+    # the rounding of the two computed numbers
+    outcomes = []
+    # (a strict "mean > SE" counts the first, third and fourth as beyond, by one ulp)
+    for loss in (0.0023695332575885417, 0.1, 1.0 / 3.0, 0.25):
+        records = [{"errors": {"raw": 1.0 + 0.01 * k, CHOICE: 1.0 + 0.01 * k + (loss if k == 3
+                                                                              else 0.0)},
+                    "choice": None, "seconds": {"raw": 0.0}} for k in range(10)]
+        summary = _summarise(records, ["raw", CHOICE])
+        outcomes.append(_outcome_counts(np.array([summary["change"][CHOICE]]),
+                                        np.array([summary["change_se"][CHOICE]])))
+    assert outcomes == [(0, 1, 0)] * 4
+    # a loss on two folds is beyond one SE (mean 2d/10 against SE 0.133 d)
+    assert _outcome_counts(np.array([0.2]), np.array([0.133])) == (0, 0, 1)

@@ -133,9 +133,15 @@ def _percent(value: float) -> str:
 
 
 def _outcome_counts(changes: np.ndarray, ses: np.ndarray) -> tuple[int, int, int]:
-    """(lower, higher within one SE, higher by more than one SE)."""
+    """(lower, higher within one SE, higher by more than one SE).
+
+    "Within" includes the boundary, up to rounding: when a choice differs
+    from the raw inputs on a single fold, its mean difference equals its
+    standard error exactly (one value d among J: mean d/J, SE d/J), and the
+    two computed numbers may differ in the last bit either way.
+    """
     lower = int(np.sum(changes < 0))
-    worse = int(np.sum(changes > ses))
+    worse = int(np.sum(changes > ses * (1 + 1e-9)))
     return lower, len(changes) - lower - worse, worse
 
 
