@@ -13,7 +13,7 @@ from sklearn.ensemble import ExtraTreesRegressor
 
 from ..forest import StitForestRegressor
 from ..lift import LiftMatrix
-from ._timing import best_time, table, timed
+from ._timing import best_time, table
 
 #: Inputs of the synthetic ridge problem; two of their directions matter.
 N_INPUTS = 10
@@ -36,7 +36,7 @@ def ridge_problem(n_train: int, n_test: int, width: int, seed: int = 0):
 
 
 def benchmark_forest(n_samples: int = 20_000, width: int = 10, n_trees: int = 100,
-                     n_jobs: int | None = None, n_test: int = 5_000) -> dict:
+                     n_jobs: int | None = None, n_test: int = 5_000, repeats: int = 2) -> dict:
     """Fit and predict times of a fully grown STIT forest and of the reference forest.
 
     Both forests grow ``n_trees`` trees to full depth on the same lifted
@@ -44,8 +44,9 @@ def benchmark_forest(n_samples: int = 20_000, width: int = 10, n_trees: int = 10
     ``lifetime=np.inf`` and the lift (it lifts X itself, inside the timing),
     and scikit-learn's ``ExtraTreesRegressor(max_features=1)`` on the lifted
     columns ``lift.apply(X)`` computed beforehand; it also cuts one random
-    column at a random threshold per node. Timings are wall-clock seconds of
-    one run each, taken one after the other in this process.
+    column at a random threshold per node. Timings are the best wall-clock
+    seconds of ``repeats`` runs each, taken one after the other in this
+    process (one run varied by up to half from run to run).
 
     Returns
     -------
@@ -59,10 +60,11 @@ def benchmark_forest(n_samples: int = 20_000, width: int = 10, n_trees: int = 10
                                n_jobs=n_jobs)
     reference = ExtraTreesRegressor(n_estimators=n_trees, max_features=1, random_state=0,
                                     n_jobs=n_jobs)
-    stit_fit, _ = timed(lambda: stit.fit(X, y))
-    reference_fit, _ = timed(lambda: reference.fit(lifted, y))
-    stit_predict, stit_prediction = timed(lambda: stit.predict(X_test))
-    reference_predict, reference_prediction = timed(lambda: reference.predict(lifted_test))
+    stit_fit = best_time(lambda: stit.fit(X, y), repeats)
+    reference_fit = best_time(lambda: reference.fit(lifted, y), repeats)
+    stit_predict = best_time(lambda: stit.predict(X_test), repeats)
+    reference_predict = best_time(lambda: reference.predict(lifted_test), repeats)
+    stit_prediction, reference_prediction = stit.predict(X_test), reference.predict(lifted_test)
     reference_bytes = np.mean([
         sum(estimator.tree_.__getstate__()[key].nbytes for key in ("nodes", "values"))
         for estimator in reference.estimators_
