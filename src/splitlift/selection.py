@@ -405,11 +405,11 @@ class DirectionLiftCV(TransformerMixin, BaseEstimator):
     standard error, the choice lost by more than one standard error on
     none of the 11 data sets with random forests and on 2 with extra trees
     (star98 +1.2% ± 0.9%, anes96 vote +3.2% ± 1.9%). Replaying the choice
-    offline on three repeats of the inner folds, that rule lost so on 0.8
+    offline on three repeats of the inner folds, that rule lost so on 0.5
     data sets per forest and draw of inner folds on average (and lowered
     the error on 7.0 of 11); two repeats with the corrected standard error
-    lost so on 0.3 to 0.5 (margin 0 to 1) and lowered the error on 6.0, so
-    these are the defaults. With them the suite measured no such loss with
+    lost so on 0.17 to 0.33 (margin 0 to 1) and lowered the error on 6.0 to
+    6.2, so these are the defaults. With them the suite measured no such loss with
     extra trees (lower on 7 of 11) and one with random forests (breast
     cancer +4.9% ± 3.2%, lower on 6). Every such figure moves by one or two
     data sets from one draw of inner folds to the next. Choosing by the
