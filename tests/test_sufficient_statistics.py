@@ -7,6 +7,7 @@ third-order co-moment is checked against its definition summed directly.
 """
 
 import itertools
+import warnings
 
 import numpy as np
 import pytest
@@ -206,8 +207,12 @@ def test_large_means_or_extreme_columns_leave_the_one_product_path():
     assert _unshifted_statistics(X, Y, SCHEME, None, False) is None  # column 4: mean 10, sd ~2
     tiny = SMALL_OFFSET * 2.0**-500  # squares underflow the safe range
     assert _unshifted_statistics(tiny, Y, SCHEME, None, False) is None
-    huge = SMALL_OFFSET * 2.0**600  # squares overflow: SAVE's path detects it afterwards
-    assert _unshifted_slice_scatters(huge, Y, SCHEME, None, False) is None
+    huge = SMALL_OFFSET * 2.0**600  # squares overflow: detected after the product, quietly
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert _unshifted_slice_scatters(huge, Y, SCHEME, None, False) is None
+        assert _unshifted_statistics(huge, Y, SCHEME, None, False) is None
+        assert _unshifted_statistics(huge, Y, None, None, True) is None
     save = block_statistics(huge, Y, scheme=SCHEME, slice_scatter=True)
     unit = save.column_scale * 2.0**-600
     scale = np.outer(unit, unit)

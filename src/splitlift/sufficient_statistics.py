@@ -574,7 +574,8 @@ def _unshifted_statistics(X, y, scheme, labels, response: bool) -> MomentStatist
     sends the caller down the general, shifted path.
     """
     n, d = X.shape
-    second = X.T @ X
+    with np.errstate(over="ignore", invalid="ignore"):  # extreme columns: checked next
+        second = X.T @ X
     squares = np.diag(second)
     low, high = _SAFE_SQUARES
     if not np.all((squares >= low) & (squares <= high)):  # False for NaN
