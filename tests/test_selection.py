@@ -160,11 +160,14 @@ def test_integer_cv_is_repeated_and_a_splitter_is_not(rng):
         np.testing.assert_array_equal(once.cv_results_[f"split{fold}_test_score"],
                                       search.cv_results_[f"split{fold}_test_score"])
     splitter = small_search().set_params(cv=KFold(3)).fit(X, y)
-    assert splitter.n_splits_ == 3
+    assert splitter.n_splits_ == 3 and "CV over 3 train/test splits" in splitter.verdict_
     with pytest.raises(ValueError, match="n_repeats=2 repeats an integer cv"):
         small_search().set_params(cv=KFold(3), n_repeats=2).fit(X, y)
-    sem = search.cv_results_["sem_test_error"]
-    assert np.all(sem > search.cv_results_["std_test_error"] / np.sqrt(6))
+    # Nadeau & Bengio (2003): sd (ddof 1) over the 6 splits times sqrt(1/6 + 40/80)
+    errors = -np.array([search.cv_results_[f"split{k}_test_score"] for k in range(6)]).T
+    np.testing.assert_allclose(search.cv_results_["sem_test_error"],
+                               np.std(errors, axis=1, ddof=1) * np.sqrt(1 / 6 + 40 / 80),
+                               rtol=1e-12)
 
 
 def test_one_random_state_reproduces_the_search_for_any_n_jobs(rng):

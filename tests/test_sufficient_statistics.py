@@ -232,3 +232,16 @@ def test_signed_scatter_over_many_chunks(monkeypatch):
     e[::7] = 0.0  # zero weights belong to neither part
     np.testing.assert_allclose(signed_scatter(X, e), np.einsum("i,ij,ik->jk", e, X, X),
                                rtol=1e-11, atol=1e-9)
+
+
+def test_large_means_skip_the_one_product_path_without_computing_it(monkeypatch):
+    import splitlift.sufficient_statistics as module
+
+    def refuse(*arguments):
+        raise AssertionError("the one-product path was tried on data with a dominant mean")
+
+    monkeypatch.setattr(module, "_unshifted_statistics", refuse)
+    monkeypatch.setattr(module, "_unshifted_slice_scatters", refuse)
+    stats = block_statistics(X, Y, scheme=SCHEME, response=True)  # column 4: mean 10, sd ~2
+    np.testing.assert_allclose(stats.covariance, np.cov(X.T, bias=True), rtol=1e-12)
+    block_statistics(X, Y, scheme=SCHEME, slice_scatter=True)

@@ -319,7 +319,7 @@ class DirectionLiftCV(TransformerMixin, BaseEstimator):
         them on 2 of 11 data sets with random forests (none at
         ``margin=1``) and won on fewer (see the guide). Standard errors are
         corrected for the training rows that splits share (see Notes).
-    n_repeats : int, default None
+    n_repeats : int or None, default None
         Repeats of an integer ``cv``, each with a fresh shuffle (scikit-learn's
         ``RepeatedKFold``): every candidate is scored on ``cv * n_repeats``
         splits. None means 2. One split's luck otherwise decides: a lift that
@@ -526,8 +526,12 @@ class DirectionLiftCV(TransformerMixin, BaseEstimator):
         self.best_params_ = {"estimator": chosen.label, "dim": chosen.dim,
                              "keep_inputs": chosen.keep_inputs}
         self.best_score_ = float(self.cv_results_["mean_test_score"][self.best_index_])
-        design = (f"{len(folds)}-fold CV" if n_repeats == 1
-                  else f"{self.cv}-fold CV repeated {n_repeats} times")
+        if n_repeats > 1:
+            design = f"{self.cv}-fold CV repeated {n_repeats} times"
+        elif isinstance(self.cv, Integral):
+            design = f"{self.cv}-fold CV"
+        else:
+            design = f"CV over {len(folds)} train/test splits"
         self.verdict_ = _verdict(self.cv_results_, self.best_index_, metric, design,
                                  self.margin, type(self.forest_).__name__)
         started = time.perf_counter()
@@ -633,7 +637,7 @@ class DirectionLiftCV(TransformerMixin, BaseEstimator):
         """The comparison as a compact pandas DataFrame, one row per candidate.
 
         Columns: ``candidate``, ``output_columns``, ``cv_error`` and
-        ``cv_error_sd`` (mean and standard deviation over folds),
+        ``cv_error_sd`` (mean and standard deviation over splits),
         ``change_vs_raw`` and ``change_se`` (relative change against the raw
         inputs and its paired standard error), ``within_one_se``, ``chosen``
         and ``status``. ``DataFrame.attrs["verdict"]`` holds :attr:`verdict_`.

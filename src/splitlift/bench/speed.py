@@ -15,10 +15,9 @@ def moment_methods(n_samples: int = 1_000_000, n_features: int = 20, repeats: in
     """SIR, SAVE and pHd against statsmodels' ``regression.dimred`` and one ``X.T @ X``.
 
     Same data, same slicing (``n_slices = 10``, statsmodels' ``slice_n = n / 10``),
-    best of ``repeats`` for statsmodels and of at least 7 for the product and
-    our fits (the ratio between them is the target, and a tenth of a second
-    varies most from run to run). Peak memory is the tracemalloc peak during
-    our fit divided by the size of X.
+    best of at least 7 runs each (a tenth of a second varies most from run
+    to run, and every timing gets the same number of tries). Peak memory is
+    the tracemalloc peak during our fit divided by the size of X.
     """
     from statsmodels.regression.dimred import SAVE, PrincipalHessianDirections, SlicedInverseReg
 
@@ -38,7 +37,7 @@ def moment_methods(n_samples: int = 1_000_000, n_features: int = 20, repeats: in
         warnings.simplefilter("ignore")
         for name, estimator, reference in cases:
             ours = best_time(lambda estimator=estimator: estimator.fit(X, y), fast_repeats)
-            theirs = best_time(reference, repeats)
+            theirs = best_time(reference, fast_repeats)
             memory = peak_memory(lambda estimator=estimator: estimator.fit(X, y))
             rows.append({
                 "method": name, "splitlift_s": ours, "statsmodels_s": theirs, "xtx_s": product,

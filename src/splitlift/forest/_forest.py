@@ -237,10 +237,13 @@ class _StitForest(BaseEstimator):
         for first in range(0, n_outputs, group):
             outputs = slice(first, first + group)
             part = np.ascontiguousarray(targets[:, outputs])
+            # centred, so that the difference arrays' running sums carry no large offset
+            centre = np.average(part, axis=0, weights=weights)
+            part = part - centre
             batches = Parallel(n_jobs=self.n_jobs, prefer="threads", return_as="generator")(
                 delayed(_leave_one_out_batch)(trees[start : start + _TREES_PER_BATCH],
                                               leaves[start : start + _TREES_PER_BATCH],
-                                              outputs, part, weights, grid)
+                                              outputs, part, centre, weights, grid)
                 for start in range(0, len(trees), _TREES_PER_BATCH)
             )
             total = None
@@ -370,11 +373,12 @@ def _grow_window_batch(normals, upper, lifetime, exponent, lifted_center, seeds)
     return partitions
 
 
-def _leave_one_out_batch(trees, leaves, outputs, targets, weights, grid):
-    """Sum over ``trees`` of the leave-one-out predictions, shape (outputs, grid, n)."""
+def _leave_one_out_batch(trees, leaves, outputs, targets, centre, weights, grid):
+    """Sum over ``trees`` of the leave-one-out predictions minus ``centre``, shape
+    (outputs, grid, n); ``targets`` are centred on it too."""
     differences = np.zeros((targets.shape[1], grid.size, targets.shape[0]))
     for tree, leaf_of_point in zip(trees, leaves, strict=True):
-        value = np.ascontiguousarray(tree.value[:, outputs])
+        value = tree.value[:, outputs] - centre
         _compiled.add_leave_one_out(tree.routing, tree.parent, tree.split_time,
                                     tree.n_node_samples, value, leaf_of_point, targets,
                                     weights, grid, differences)
