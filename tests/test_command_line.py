@@ -68,7 +68,10 @@ def test_ctrl_c_during_score_exits_130_with_one_line(tmp_path):
     table["y"] = table["a"] * table["b"] + rng.standard_normal(3000)
     table.to_csv(tmp_path / "data.csv", index=False)
     np.save(tmp_path / "axes.npy", np.eye(6))
-    starter = ("import sys; from splitlift.cli import main; print('ready', flush=True); "
+    # a shell runs background jobs with SIGINT ignored, and a child inherits that: restore
+    # Python's own handler, so the test does not depend on how it was started
+    starter = ("import signal, sys; signal.signal(signal.SIGINT, signal.default_int_handler); "
+               "from splitlift.cli import main; print('ready', flush=True); "
                "sys.exit(main(sys.argv[1:]))")
     child = subprocess.Popen(
         [sys.executable, "-c", starter, "score", *["axes.npy"] * 30, "--data", "data.csv",
