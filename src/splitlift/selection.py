@@ -94,9 +94,9 @@ def make_folds(cv, X, y, classify: bool, seed: int, n_repeats: int = 1) -> list:
     """Train/test index pairs shared by every candidate.
 
     An integer gives shuffled ``KFold`` (``StratifiedKFold`` for class labels)
-    seeded with ``seed``, repeated ``n_repeats`` times with fresh shuffles (the
-    first repeat is the unrepeated split); a splitter or an iterable of pairs
-    is used as given.
+    seeded with ``seed``, repeated ``n_repeats`` times with fresh shuffles
+    (scikit-learn's repeated splitters, whose first repeat is that shuffled
+    split); a splitter or an iterable of pairs is used as given.
     """
     n_samples = X.shape[0]
     if isinstance(cv, Integral) and not isinstance(cv, bool):
@@ -107,12 +107,8 @@ def make_folds(cv, X, y, classify: bool, seed: int, n_repeats: int = 1) -> list:
                 f"X has n_samples = {n_samples}, too few for cv = {cv} folds (at least two "
                 f"rows per fold, {2 * cv} in all); lower cv or add rows."
             )
-        if n_repeats > 1:
-            splitter = (RepeatedStratifiedKFold if classify else RepeatedKFold)(
-                n_splits=int(cv), n_repeats=n_repeats, random_state=seed)
-        else:
-            splitter = (StratifiedKFold if classify else KFold)(
-                int(cv), shuffle=True, random_state=seed)
+        splitter = (RepeatedStratifiedKFold if classify else RepeatedKFold)(
+            n_splits=int(cv), n_repeats=n_repeats, random_state=seed)
     elif (hasattr(cv, "split") or np.iterable(cv)) and not isinstance(cv, str | bytes):
         splitter = check_cv(cv, y, classifier=classify)
     else:

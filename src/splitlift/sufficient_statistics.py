@@ -440,8 +440,7 @@ def safe_column_scale(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     ``X / scale``.
     """
     squares = np.einsum("ij,ij->j", X, X)
-    low, high = _SAFE_SQUARES
-    if X.shape[0] == 0 or np.all((squares >= low) & (squares <= high)):  # False for NaN
+    if X.shape[0] == 0 or _in_safe_range(squares):
         return np.ones(X.shape[1]), squares
     scale = power_of_two_scale(X)
     return scale, np.einsum("ij,ij->j", X / scale, X / scale)
@@ -463,6 +462,18 @@ def signed_scatter(X: np.ndarray, signed_weights: np.ndarray) -> np.ndarray:
             block *= np.sqrt(np.abs(weights[keep]))[:, None]
             part += block.T @ block
     return positive - negative
+
+
+def _in_safe_range(squares: np.ndarray) -> bool:
+    """Every column's sum of squares inside ``_SAFE_SQUARES`` (False for NaN)."""
+    low, high = _SAFE_SQUARES
+    return bool(np.all((squares >= low) & (squares <= high)))
+
+
+def _raw_sums_accurate(mean: np.ndarray, squares: np.ndarray, n_rows: int) -> bool:
+    """Squares in the safe range and no mean dominating its spread (:func:`_shift_for`
+    zero): uncentred sums and products are then accurate."""
+    return _in_safe_range(squares) and not np.any(_shift_for(mean, squares, n_rows))
 
 
 def _shift_for(mean: np.ndarray, squares: np.ndarray, n_rows: int) -> np.ndarray:
@@ -577,10 +588,7 @@ def _one_product_likely(X: np.ndarray) -> bool:
     """
     head = X[:_SCREEN_ROWS]
     squares = np.einsum("ij,ij->j", head, head)
-    low, high = _SAFE_SQUARES
-    if not np.all((squares >= low) & (squares <= high)):
-        return False
-    return not np.any(_shift_for(head.mean(axis=0), squares, head.shape[0]))
+    return _raw_sums_accurate(head.mean(axis=0), squares, head.shape[0])
 
 
 def _unshifted_statistics(X, y, scheme, labels, response: bool) -> MomentStatistics | None:
@@ -597,8 +605,7 @@ def _unshifted_statistics(X, y, scheme, labels, response: bool) -> MomentStatist
     with np.errstate(over="ignore", invalid="ignore"):  # extreme columns: checked next
         second = X.T @ X
     squares = np.diag(second)
-    low, high = _SAFE_SQUARES
-    if not np.all((squares >= low) & (squares <= high)):  # False for NaN
+    if not _in_safe_range(squares):  # before any sums are formed from extreme columns
         return None
     groups = raw_cross = response_moments = centred = None
     if response:
@@ -651,9 +658,7 @@ def _unshifted_slice_scatters(X, y, scheme, labels, response: bool
         slices = GroupMoments(totals, rows, np.zeros(d), means, scatters)
         inputs = slices.pooled()
         squares = np.diag(inputs.scatter[0]) + n * inputs.mean[0] ** 2
-    low, high = _SAFE_SQUARES
-    if not np.all((squares >= low) & (squares <= high)) or np.any(
-            _shift_for(inputs.mean[0], squares, n)):
+    if not _raw_sums_accurate(inputs.mean[0], squares, n):
         return None
     moments = None
     if response:

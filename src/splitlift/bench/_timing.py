@@ -17,7 +17,16 @@ from .._tables import text_table
 
 def best_time(function: Callable[[], object], repeats: int = 3) -> float:
     """Best wall-clock time of ``repeats`` calls, in seconds."""
-    return min(timed(function)[0] for _ in range(repeats))
+    return best_timed(function, repeats)[0]
+
+
+def best_timed(function: Callable[[], object], repeats: int = 3) -> tuple[float, object]:
+    """Best wall-clock seconds of ``repeats`` calls, and the last call's result."""
+    best, result = np.inf, None
+    for _ in range(repeats):
+        seconds, result = timed(function)
+        best = min(best, seconds)
+    return best, result
 
 
 def timed(function: Callable[[], object]) -> tuple[float, object]:

@@ -13,7 +13,7 @@ from sklearn.ensemble import ExtraTreesRegressor
 
 from ..forest import StitForestRegressor
 from ..lift import LiftMatrix
-from ._timing import best_time, table
+from ._timing import best_time, best_timed, table
 
 #: Inputs of the synthetic ridge problem; two of their directions matter.
 N_INPUTS = 10
@@ -62,9 +62,9 @@ def benchmark_forest(n_samples: int = 20_000, width: int = 10, n_trees: int = 10
                                     n_jobs=n_jobs)
     stit_fit = best_time(lambda: stit.fit(X, y), repeats)
     reference_fit = best_time(lambda: reference.fit(lifted, y), repeats)
-    stit_predict = best_time(lambda: stit.predict(X_test), repeats)
-    reference_predict = best_time(lambda: reference.predict(lifted_test), repeats)
-    stit_prediction, reference_prediction = stit.predict(X_test), reference.predict(lifted_test)
+    stit_predict, stit_prediction = best_timed(lambda: stit.predict(X_test), repeats)
+    reference_predict, reference_prediction = best_timed(
+        lambda: reference.predict(lifted_test), repeats)
     reference_bytes = np.mean([
         sum(estimator.tree_.__getstate__()[key].nbytes for key in ("nodes", "values"))
         for estimator in reference.estimators_
@@ -98,9 +98,8 @@ def benchmark_auto_lifetime(n_samples: int = 20_000, width: int = 10, n_trees: i
         return StitForestRegressor(lifetime=lifetime, n_trees=n_trees, lift=lift,
                                    random_state=0, n_jobs=n_jobs)
 
-    auto, grown = forest("auto").fit(X, y), forest(np.inf).fit(X, y)
-    auto_seconds = best_time(lambda: forest("auto").fit(X, y), repeats)
-    grown_seconds = best_time(lambda: forest(np.inf).fit(X, y), repeats)
+    auto_seconds, auto = best_timed(lambda: forest("auto").fit(X, y), repeats)
+    grown_seconds, grown = best_timed(lambda: forest(np.inf).fit(X, y), repeats)
     chosen_seconds = best_time(lambda: forest(auto.lifetime_).fit(X, y), repeats)
     return {
         "n_samples": n_samples, "width": width, "n_trees": n_trees, "n_jobs": n_jobs or 1,
