@@ -25,6 +25,32 @@ def test_nan_and_inf_in_X(cls, data):
 
 
 @pytest.mark.parametrize("cls", ESTIMATORS)
+@pytest.mark.parametrize("bad", [np.nan, np.inf, -np.inf, "pair"])
+@pytest.mark.parametrize("row", [3, 2999])
+def test_moment_methods_refuse_non_finite_X_as_scikit_learn_does(cls, bad, row, rng):
+    # moment methods check X only on their fallback path (finite sums of squares prove
+    # it finite): a bad value after the first rows screened must still get the message
+    # of scikit-learn's own check, word for word
+    from sklearn.utils import assert_all_finite
+
+    X = rng.standard_normal((3000, 4))
+    y = X[:, 0] + 0.1 * rng.standard_normal(3000)
+    X_bad = X.copy()
+    if bad == "pair":  # +inf and -inf in one column: a sum would be NaN, not inf
+        X_bad[row, 1], X_bad[row - 1, 1] = np.inf, -np.inf
+    else:
+        X_bad[row, 1] = bad
+    with pytest.raises(ValueError) as expected:
+        assert_all_finite(X_bad, input_name="X", estimator_name=cls.__name__)
+    with pytest.raises(ValueError) as refused:
+        cls().fit(X_bad, y)
+    assert str(refused.value) == str(expected.value)
+    with pytest.raises(ValueError) as refused:  # weighted fits take the fallback path
+        cls().fit(X_bad, y, sample_weight=np.ones(3000))
+    assert str(refused.value) == str(expected.value)
+
+
+@pytest.mark.parametrize("cls", ESTIMATORS)
 def test_nan_in_y(cls, data):
     X, y = data
     y = y.copy()

@@ -303,6 +303,19 @@ def test_default_forest_is_a_random_forest_for_the_target_type(rng):
     assert isinstance(numeric.fit(X, labels).forest_, RandomForestClassifier)
 
 
+def test_default_candidates_follow_the_target_type(rng):
+    # ADE for a numeric response; ADE and SIR (slices = classes) for class labels
+    X = rng.standard_normal((80, 3))
+    search = sl.DirectionLiftCV(forest=ExtraTreesRegressor(n_estimators=5), cv=2,
+                                n_repeats=1, progress=False, random_state=0)
+    numeric = search.fit(X, X[:, 0]).cv_results_["candidate"]
+    assert list(numeric) == ["raw inputs", "ADE dim 1", "ADE dim 1 + inputs"]
+    search.set_params(forest=ExtraTreesClassifier(n_estimators=5))
+    labels = search.fit(X, np.where(X[:, 0] > 0, "a", "b")).cv_results_["candidate"]
+    assert list(labels) == ["raw inputs", "ADE dim 1", "ADE dim 1 + inputs", "SIR dim 1",
+                            "SIR dim 1 + inputs"]
+
+
 def test_layers_only_look_down():
     # The import circle estimators -> dimension -> transformer -> estimators is
     # gone: the estimators and the dimension rules import nothing that fits a

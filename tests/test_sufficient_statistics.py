@@ -21,7 +21,6 @@ from splitlift.sufficient_statistics import (
     _unshifted_statistics,
     block_statistics,
     merge_all,
-    signed_scatter,
 )
 
 RNG = np.random.default_rng(20261203)
@@ -224,14 +223,45 @@ def test_large_means_or_extreme_columns_leave_the_one_product_path():
                                rtol=1e-12)
 
 
-def test_signed_scatter_over_many_chunks(monkeypatch):
-    import splitlift.sufficient_statistics as module
+@pytest.mark.parametrize("part_rows", [16, 1 << 16])
+def test_compiled_products_match_numpy_over_any_number_of_parts(monkeypatch, part_rows):
+    # reference: numpy's einsum and per-group means and centred products
+    import splitlift._moment_kernels as kernels
 
-    monkeypatch.setattr(module, "_SIGNED_CHUNK_ELEMENTS", 64)  # 16 rows per chunk
-    e = Y - Y.mean()
-    e[::7] = 0.0  # zero weights belong to neither part
-    np.testing.assert_allclose(signed_scatter(X, e), np.einsum("i,ij,ik->jk", e, X, X),
-                               rtol=1e-11, atol=1e-9)
+    monkeypatch.setattr(kernels, "_PART_ROWS", part_rows)  # 16: eight parts, in threads
+    scale = 8.0
+    centre = float(np.mean(Y / scale))
+    sums, cross, products, powers = kernels.response_products(X, Y, scale, centre)
+    c = Y / scale - centre
+    e = c * scale
+    np.testing.assert_allclose(sums, X.sum(axis=0), rtol=1e-12)
+    np.testing.assert_allclose(cross, e @ X, rtol=1e-11, atol=1e-9)
+    np.testing.assert_allclose(products, np.einsum("i,ij,ik->jk", e, X, X), rtol=1e-11,
+                               atol=1e-9)
+    np.testing.assert_allclose(powers, [c.sum(), c @ c, c**2 @ c, c**2 @ c**2], rtol=1e-11,
+                               atol=1e-9)
+    labels = np.arange(X.shape[0]) % 3
+    shifted = X + 1e6  # means a million spreads away: no digit may be lost to them
+    counts, means, scatters = kernels.grouped_scatters(shifted, labels, 4)
+    np.testing.assert_array_equal(counts, [np.sum(labels == g) for g in range(3)] + [0])
+    for group in range(3):
+        rows = shifted[labels == group]
+        centred = rows - rows.mean(axis=0)
+        np.testing.assert_allclose(means[group], rows.mean(axis=0), rtol=1e-14)
+        np.testing.assert_allclose(scatters[group], centred.T @ centred, rtol=1e-9,
+                                   atol=1e-9 * np.abs(centred.T @ centred).max())
+    assert not means[3].any() and not scatters[3].any()  # an empty group stays zero
+
+
+def test_compiled_products_do_not_depend_on_the_number_of_cores(monkeypatch):
+    import splitlift._moment_kernels as kernels
+
+    monkeypatch.setattr(kernels, "_PART_ROWS", 16)
+    labels = np.arange(X.shape[0]) % 5
+    threaded = kernels.grouped_scatters(X, labels, 5)
+    monkeypatch.setattr(kernels, "cpu_count", lambda: 1)
+    for left, right in zip(threaded, kernels.grouped_scatters(X, labels, 5), strict=True):
+        np.testing.assert_array_equal(left, right)
 
 
 def test_large_means_skip_the_one_product_path_without_computing_it(monkeypatch):

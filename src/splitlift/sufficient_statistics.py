@@ -42,10 +42,6 @@ from .moments import (
     weighted_mean,
 )
 
-# Rows per chunk of signed_scatter: large enough for an efficient symmetric
-# product, small enough to stay in cache.
-_SIGNED_CHUNK_ELEMENTS = 1 << 19
-
 # Rows that _one_product_likely looks at.
 _SCREEN_ROWS = 1024
 
@@ -53,6 +49,13 @@ _SCREEN_ROWS = 1024
 # any product the methods form; outside it the block is rescaled by powers
 # of two (power_of_two_scale), which is exact.
 _SAFE_SQUARES = (2.0**-900, 2.0**960)
+
+
+def _moment_kernels():
+    """The compiled kernels, imported on first use: numba takes half a second to load."""
+    from . import _moment_kernels
+
+    return _moment_kernels
 
 
 def _outer(u: np.ndarray, v: np.ndarray) -> np.ndarray:
@@ -165,16 +168,23 @@ class ScalarMoments:
     def of(cls, values: np.ndarray, weights=None) -> ScalarMoments:
         if values.size == 0:
             return cls(0.0, 0.0, 0.0, 0.0, 0.0, 1.0)
-        largest = float(np.max(np.abs(values)))
-        scale = float(np.ldexp(1.0, np.frexp(largest)[1])) if largest > 0 else 1.0
-        scaled = values / scale
-        total = float(values.size if weights is None else weights.sum())
-        mean = float(scaled.sum() / total if weights is None else weights @ scaled / total)
-        centred = scaled - mean
+        total, mean, scale = cls.location(values, weights)
+        centred = values / scale - mean
         square = centred * centred
         weighted = square if weights is None else square * weights
         sums = [weighted.sum(), weighted @ centred, weighted @ square]
         return cls(total, mean, *(float(v) for v in sums), scale)
+
+    @staticmethod
+    def location(values: np.ndarray, weights=None) -> tuple[float, float, float]:
+        """``(weight, mean, scale)`` of :meth:`of`: the power of two near the largest
+        absolute value, and the mean of ``values / scale``."""
+        largest = max(float(values.max()), -float(values.min()))
+        scale = float(np.ldexp(1.0, np.frexp(largest)[1])) if largest > 0 else 1.0
+        scaled = values / scale
+        total = float(values.size if weights is None else weights.sum())
+        return total, float(scaled.sum() / total if weights is None
+                            else weights @ scaled / total), scale
 
     @property
     def raw_mean(self) -> float:
@@ -234,13 +244,14 @@ class ResponseMoments:
         return cls.about(X, y, weights, inputs.absolute_mean[0], response.raw_mean, response)
 
     @classmethod
-    def from_products(cls, X: np.ndarray, response: ScalarMoments, centred: np.ndarray,
-                      mean: np.ndarray, raw_cross: np.ndarray) -> ResponseMoments:
+    def from_products(cls, response: ScalarMoments, mean: np.ndarray, raw_cross: np.ndarray,
+                      weighted_products: np.ndarray, total: float) -> ResponseMoments:
         """Unweighted co-moments from uncentred products, for inputs whose means do not
         dominate their spread (:func:`_shift_for` gives zero).
 
-        With ``e = y - ȳ`` (``centred``; ``response`` holds the moments of y), ``c``
-        the input means and ``g = Σ e x`` (``raw_cross``):
+        With ``e = y - ȳ`` (``response`` holds the moments of y), ``c`` the input
+        means, ``g = Σ e x`` (``raw_cross``), ``Σ e x x^T`` (``weighted_products``)
+        and ``Σ e`` (``total``):
         ``Σ e (x - c) = g - (Σ e) c`` and ``Σ e (x - c)(x - c)^T = Σ e x x^T - g c^T
         - c g^T + (Σ e) c c^T``. The correction terms cancel part of the raw sum,
         which costs digits as the means grow against the spread; at the
@@ -248,8 +259,7 @@ class ResponseMoments:
         was lost against the centred path in a check, as in
         :func:`splitlift.moments.scatter_about`.
         """
-        total = float(centred.sum())
-        scatter = (signed_scatter(X, centred) - _outer(raw_cross, mean) - _outer(mean, raw_cross)
+        scatter = (weighted_products - _outer(raw_cross, mean) - _outer(mean, raw_cross)
                    + total * _outer(mean, mean))
         return cls(response, raw_cross - total * mean, scatter)
 
@@ -446,24 +456,6 @@ def safe_column_scale(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return scale, np.einsum("ij,ij->j", X / scale, X / scale)
 
 
-def signed_scatter(X: np.ndarray, signed_weights: np.ndarray) -> np.ndarray:
-    """``Σ e_i x_i x_i^T`` for weights of either sign, as two symmetric rank-k updates.
-
-    Rows with positive and negative weights are gathered (in cache-sized
-    chunks) and scaled by ``sqrt|e|``, so each part is a symmetric product
-    ``B^T B``, which BLAS forms in half the work of a general product.
-    """
-    d = X.shape[1]
-    positive, negative = np.zeros((d, d)), np.zeros((d, d))
-    for rows in _row_chunks(X.shape[0], d, _SIGNED_CHUNK_ELEMENTS):
-        weights = signed_weights[rows]
-        for part, keep in ((positive, weights > 0), (negative, weights < 0)):
-            block = np.compress(keep, X[rows], axis=0)
-            block *= np.sqrt(np.abs(weights[keep]))[:, None]
-            part += block.T @ block
-    return positive - negative
-
-
 def _in_safe_range(squares: np.ndarray) -> bool:
     """Every column's sum of squares inside ``_SAFE_SQUARES`` (False for NaN)."""
     low, high = _SAFE_SQUARES
@@ -511,7 +503,7 @@ def _shifted_sums(X, shift, weights, labels, n_slices, sums):
 
 def block_statistics(X: np.ndarray, y=None, weights=None, *, scheme: SliceScheme | None = None,
                      labels=None, slice_scatter: bool = False,
-                     response: bool = False) -> MomentStatistics:
+                     response: bool = False, check_finite=None) -> MomentStatistics:
     """Sufficient statistics of one block of rows.
 
     Parameters
@@ -530,6 +522,10 @@ def block_statistics(X: np.ndarray, y=None, weights=None, *, scheme: SliceScheme
         Keep each slice's scatter (SAVE).
     response : bool
         Keep the co-moments of the numeric response with the inputs (pHd).
+    check_finite : callable, optional
+        For ``X`` not yet checked for NaN and infinity: called with ``X``
+        (and expected to raise) unless the one-product path succeeds, whose
+        finite, safe-range sums of squares prove every entry finite.
     """
     if weights is not None and not np.all(weights > 0):
         kept = weights > 0
@@ -543,6 +539,8 @@ def block_statistics(X: np.ndarray, y=None, weights=None, *, scheme: SliceScheme
                 else _unshifted_statistics(X, y, scheme, labels, response))
         if fast is not None:
             return fast
+    if check_finite is not None:
+        check_finite(X)
     column_scale, squares = safe_column_scale(X)
     if not np.all(column_scale == 1.0):
         X = X / column_scale
@@ -607,21 +605,18 @@ def _unshifted_statistics(X, y, scheme, labels, response: bool) -> MomentStatist
     squares = np.diag(second)
     if not _in_safe_range(squares):  # before any sums are formed from extreme columns
         return None
-    groups = raw_cross = response_moments = centred = None
-    if response:
+    groups = response_moments = products = None
+    if response:  # Σ x, Σ e x, Σ e x x^T and the moments of e = y - ȳ in one compiled pass
         y = np.asarray(y, dtype=np.float64)
-        response_moments = ScalarMoments.of(y)
-        centred = y - response_moments.raw_mean
+        total, centre, scale = ScalarMoments.location(y)
+        sums, *products, powers = _moment_kernels().response_products(X, y, scale, centre)
+        response_moments = ScalarMoments(total, centre, *powers[1:].tolist(), scale)
+        products.append(float(powers[0]) * scale)  # Σ e
     if scheme is not None:
         labels = scheme.labels(y) if labels is None else labels
         groups = slice_sums(X, labels, scheme.n_slices)
         sums = groups.sum(axis=0)
-        raw_cross = None if centred is None else centred @ X
-    elif centred is not None:
-        weights = np.empty((2, n))  # rows (1, e): both sums in one pass over X
-        weights[0], weights[1] = 1.0, centred
-        sums, raw_cross = weights @ X
-    else:
+    elif not response:
         sums = X.sum(axis=0)
     mean = sums / n
     if np.any(_shift_for(mean, squares, n)):
@@ -637,7 +632,7 @@ def _unshifted_statistics(X, y, scheme, labels, response: bool) -> MomentStatist
                           where=totals[:, None] > 0)
         slices = GroupMoments(totals, rows, zero, means, None)
     if response:
-        moments = ResponseMoments.from_products(X, response_moments, centred, mean, raw_cross)
+        moments = ResponseMoments.from_products(response_moments, mean, *products)
     return MomentStatistics(np.ones(d), inputs, slices, scheme, moments)
 
 
@@ -645,8 +640,9 @@ def _unshifted_slice_scatters(X, y, scheme, labels, response: bool
                               ) -> MomentStatistics | None:
     """SAVE's unweighted statistics straight from the slices' own scatters, or None.
 
-    The slices' symmetric products add up to one ``X^T X``, and pooling
-    them gives the inputs' moments, so no pass of its own computes the
+    One compiled pass adds every row to its slice's sums and products
+    (:func:`splitlift._moment_kernels.grouped_scatters`), and pooling the
+    slices gives the inputs' moments, so no pass of its own computes the
     column means and squares; these are checked afterwards, as in
     :func:`_unshifted_statistics`.
     """
@@ -654,7 +650,8 @@ def _unshifted_slice_scatters(X, y, scheme, labels, response: bool
     labels = scheme.labels(y) if labels is None else labels
     rows = np.bincount(labels, minlength=scheme.n_slices)
     with np.errstate(over="ignore", invalid="ignore"):  # extreme columns: checked below
-        totals, means, scatters = slice_scatters(X, labels, scheme.n_slices)
+        totals, means, scatters = _moment_kernels().grouped_scatters(X, labels,
+                                                                      scheme.n_slices)
         slices = GroupMoments(totals, rows, np.zeros(d), means, scatters)
         inputs = slices.pooled()
         squares = np.diag(inputs.scatter[0]) + n * inputs.mean[0] ** 2

@@ -8,6 +8,7 @@ from numbers import Integral, Real
 
 import numpy as np
 from sklearn.base import BaseEstimator, ClassNamePrefixFeaturesOutMixin, TransformerMixin
+from sklearn.utils import assert_all_finite
 from sklearn.utils._param_validation import HasMethods, Interval, StrOptions
 from sklearn.utils.metaestimators import available_if
 from sklearn.utils.validation import check_is_fitted, validate_data
@@ -103,6 +104,9 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
 
     #: Whether ``y`` may be class labels of any dtype.
     _accepts_labels = True
+    #: Whether an in-memory fit checks X for NaN and infinity itself, at no cost
+    #: where its statistics prove X finite (moment methods, see ``_statistics``).
+    _proves_finite_inputs = False
     #: Whether rows enter weighted by the response value (not only its order).
     _weights_rows_by_response = False
     #: Whether neighbourhoods are measured in standardised (not whitened) inputs.
@@ -140,7 +144,8 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
             from ..dask_support import fit_on_dask
 
             return fit_on_dask(self, X, y, sample_weight)
-        X, y, weights = self._validated(X, y, sample_weight, reset=True)
+        X, y, weights = self._validated(X, y, sample_weight, reset=True,
+                                        finite=not self._proves_finite_inputs)
         self._check_dim_setting(X.shape[1])
         self.row_sample_ = None  # all rows were in memory
         eigenvalues, directions = self._scale_safe_decomposition(X, y, weights)
@@ -153,9 +158,14 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
         """Standard deviation of every input column (for ``standardised_loadings_``)."""
         return column_location_scale(X / self.column_scale_, weights)[1] * self.column_scale_
 
-    def _validated(self, X, y, sample_weight, reset: bool):
-        """Checked float inputs, response and weights; zero-weight rows dropped."""
-        X, y = validate_data(self, X, y, dtype=float, reset=reset)
+    def _validated(self, X, y, sample_weight, reset: bool, finite: bool = True):
+        """Checked float inputs, response and weights; zero-weight rows dropped.
+
+        ``finite=False`` leaves NaN and infinity in ``X`` to the caller, which
+        must refuse them before using ``X`` (:meth:`_refuse_non_finite`).
+        """
+        X, y = validate_data(self, X, y, dtype=float, reset=reset,
+                             ensure_all_finite=finite)
         if not self._accepts_labels:
             y = _numeric_response(y, type(self).__name__)
         if y.dtype.kind in "fc" and not np.all(np.isfinite(y)):
@@ -166,6 +176,10 @@ class SubspaceEstimator(ClassNamePrefixFeaturesOutMixin, TransformerMixin, BaseE
             X, y, weights = X[kept], y[kept], weights[kept]
         check_sample_count(X.shape[0])
         return X, y, weights
+
+    def _refuse_non_finite(self, X) -> None:
+        """scikit-learn's error for NaN or infinity in ``X``, as ``validate_data`` gives it."""
+        assert_all_finite(X, input_name="X", estimator_name=type(self).__name__)
 
     def _check_dim_setting(self, n_features: int) -> None:
         """Refuse an impossible ``dim`` or rule before any heavy work."""
@@ -349,6 +363,8 @@ class MomentEstimator(SubspaceEstimator):
     may override :meth:`_order` (descending by default).
     """
 
+    _proves_finite_inputs = True
+
     _parameter_constraints: dict = {
         **SubspaceEstimator._parameter_constraints,
         "rank_tolerance": [Interval(Real, 0, 1, closed="neither")],
@@ -448,9 +464,12 @@ class MomentEstimator(SubspaceEstimator):
     def _statistics(self, X, y, weights) -> MomentStatistics:
         """Statistics of in-memory rows: one block (pHd with residuals adds a second pass)."""
         scheme, labels = self._slicing(y, weights)
+        # X was not checked for NaN and infinity: a finite sum of squares per column
+        # proves every entry finite, so only the fallback path pays for a check
         return block_statistics(X, y, weights, scheme=scheme, labels=labels,
                                 slice_scatter=self._slice_scatter,
-                                response=self._response_moments)
+                                response=self._response_moments,
+                                check_finite=self._refuse_non_finite)
 
     def _block_statistics(self, X, y, weights, previous: MomentStatistics | None):
         """Statistics of one batch, sliced as the earlier batches were."""
