@@ -123,6 +123,30 @@ def test_results_do_not_depend_on_n_jobs(extent):
     np.testing.assert_array_equal(fits[0].predict(X), fits[1].predict(X))
 
 
+def test_many_query_points_route_in_blocks_with_the_same_result_for_any_n_jobs():
+    # 5000 points make 3, 4 or 6 blocks for n_jobs 1, 2, 3: each point's sum over trees
+    # runs in tree order whatever its block, so the predictions agree bit for bit
+    from threadpoolctl import threadpool_info
+
+    rng = np.random.default_rng(8)
+    X, y, _ = _oblique_data(200, rng)
+    X_new = rng.uniform(-1, 1, size=(5000, X.shape[1]))
+    before = [pool["num_threads"] for pool in threadpool_info()]
+    forest = StitForestRegressor(lifetime=np.inf, n_trees=7, random_state=8).fit(X, y)
+    predictions = [forest.set_params(n_jobs=n_jobs).predict(X_new) for n_jobs in (1, 2, 3)]
+    for other in predictions[1:]:
+        np.testing.assert_array_equal(predictions[0], other)
+    single = np.mean(_per_tree(forest, X_new), axis=0)
+    np.testing.assert_allclose(predictions[0], single, rtol=1e-12, atol=1e-12)
+    # the lift ran with BLAS on one thread; the limit is lifted afterwards
+    assert [pool["num_threads"] for pool in threadpool_info()] == before
+
+
+def _per_tree(forest, X):
+    leaves = forest.apply(X)
+    return [tree.value[leaves[:, k], 0] for k, tree in enumerate(forest.trees_)]
+
+
 def test_auto_lifetime_picks_the_grid_minimum():
     rng = np.random.default_rng(7)
     X, y, _ = _oblique_data(300, rng, noise=0.5)
