@@ -16,11 +16,11 @@ compiled once by numba and cached on disk, and they release the GIL.
 
 from __future__ import annotations
 
-from concurrent.futures import ThreadPoolExecutor
-
 import numpy as np
 from joblib import cpu_count
 from numba import njit
+
+from ._progress import threaded_map
 
 #: Rows per part: a part is worth a thread only when it is this long.
 _PART_ROWS = 1 << 16
@@ -104,13 +104,7 @@ def _parts(n_rows: int) -> list[tuple[int, int]]:
 
 def _summed(kernel, *arguments, n_rows: int) -> tuple:
     """Run ``kernel(*arguments, start, stop)`` on every part and add the results in order."""
-    parts = _parts(n_rows)
-    threads = min(len(parts), cpu_count())
-    if threads > 1:
-        with ThreadPoolExecutor(threads) as pool:
-            results = list(pool.map(lambda part: kernel(*arguments, *part), parts))
-    else:
-        results = [kernel(*arguments, *part) for part in parts]
+    results = threaded_map(lambda part: kernel(*arguments, *part), _parts(n_rows), cpu_count())
     total = list(results[0])
     for result in results[1:]:
         for index, value in enumerate(result):

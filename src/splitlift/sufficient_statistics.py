@@ -168,23 +168,24 @@ class ScalarMoments:
     def of(cls, values: np.ndarray, weights=None) -> ScalarMoments:
         if values.size == 0:
             return cls(0.0, 0.0, 0.0, 0.0, 0.0, 1.0)
-        total, mean, scale = cls.location(values, weights)
-        centred = values / scale - mean
+        total, mean, scale, scaled = cls.location(values, weights)
+        centred = scaled - mean
         square = centred * centred
         weighted = square if weights is None else square * weights
         sums = [weighted.sum(), weighted @ centred, weighted @ square]
         return cls(total, mean, *(float(v) for v in sums), scale)
 
     @staticmethod
-    def location(values: np.ndarray, weights=None) -> tuple[float, float, float]:
-        """``(weight, mean, scale)`` of :meth:`of`: the power of two near the largest
-        absolute value, and the mean of ``values / scale``."""
+    def location(values: np.ndarray, weights=None
+                 ) -> tuple[float, float, float, np.ndarray]:
+        """``(weight, mean, scale, values / scale)`` of :meth:`of`: ``scale`` is the
+        power of two near the largest absolute value, ``mean`` that of ``values / scale``."""
         largest = max(float(values.max()), -float(values.min()))
         scale = float(np.ldexp(1.0, np.frexp(largest)[1])) if largest > 0 else 1.0
         scaled = values / scale
         total = float(values.size if weights is None else weights.sum())
         return total, float(scaled.sum() / total if weights is None
-                            else weights @ scaled / total), scale
+                            else weights @ scaled / total), scale, scaled
 
     @property
     def raw_mean(self) -> float:
@@ -605,13 +606,12 @@ def _unshifted_statistics(X, y, scheme, labels, response: bool) -> MomentStatist
     squares = np.diag(second)
     if not _in_safe_range(squares):  # before any sums are formed from extreme columns
         return None
-    groups = response_moments = products = None
     if response:  # Σ x, Σ e x, Σ e x x^T and the moments of e = y - ȳ in one compiled pass
         y = np.asarray(y, dtype=np.float64)
-        total, centre, scale = ScalarMoments.location(y)
-        sums, *products, powers = _moment_kernels().response_products(X, y, scale, centre)
+        total, centre, scale, _ = ScalarMoments.location(y)
+        sums, raw_cross, weighted_products, powers = _moment_kernels().response_products(
+            X, y, scale, centre)
         response_moments = ScalarMoments(total, centre, *powers[1:].tolist(), scale)
-        products.append(float(powers[0]) * scale)  # Σ e
     if scheme is not None:
         labels = scheme.labels(y) if labels is None else labels
         groups = slice_sums(X, labels, scheme.n_slices)
@@ -632,7 +632,8 @@ def _unshifted_statistics(X, y, scheme, labels, response: bool) -> MomentStatist
                           where=totals[:, None] > 0)
         slices = GroupMoments(totals, rows, zero, means, None)
     if response:
-        moments = ResponseMoments.from_products(response_moments, mean, *products)
+        moments = ResponseMoments.from_products(response_moments, mean, raw_cross,
+                                                weighted_products, float(powers[0]) * scale)
     return MomentStatistics(np.ones(d), inputs, slices, scheme, moments)
 
 
@@ -648,11 +649,10 @@ def _unshifted_slice_scatters(X, y, scheme, labels, response: bool
     """
     n, d = X.shape
     labels = scheme.labels(y) if labels is None else labels
-    rows = np.bincount(labels, minlength=scheme.n_slices)
     with np.errstate(over="ignore", invalid="ignore"):  # extreme columns: checked below
         totals, means, scatters = _moment_kernels().grouped_scatters(X, labels,
                                                                       scheme.n_slices)
-        slices = GroupMoments(totals, rows, np.zeros(d), means, scatters)
+        slices = GroupMoments(totals, totals.astype(np.int64), np.zeros(d), means, scatters)
         inputs = slices.pooled()
         squares = np.diag(inputs.scatter[0]) + n * inputs.mean[0] ** 2
     if not _raw_sums_accurate(inputs.mean[0], squares, n):

@@ -10,7 +10,6 @@ routing and the choice of the lifetime run in compiled kernels
 from __future__ import annotations
 
 import warnings
-from concurrent.futures import ThreadPoolExecutor
 from functools import cache
 from numbers import Integral, Real
 
@@ -24,6 +23,7 @@ from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 from threadpoolctl import ThreadpoolController
 
+from .._progress import threaded_map
 from .._validation import check_finite_matrix, check_sample_weight
 from ..lift import LiftMatrix
 from . import _compiled
@@ -295,15 +295,8 @@ class _StitForest(BaseEstimator):
         n_blocks = min(4 * jobs, -(-rows.shape[0] // _BLOCK))
         n_blocks = -(-n_blocks // jobs) * jobs if n_blocks > 1 else 1
         block = max(1, -(-rows.shape[0] // n_blocks))
-        route = getattr(self._forest, method)
         blocks = [rows[first : first + block] for first in range(0, rows.shape[0], block)]
-        if jobs == 1 or len(blocks) == 1:
-            parts = [route(rows) for rows in blocks]
-        else:
-            # a plain thread pool: joblib's result loop polls with 10 ms sleeps, which
-            # doubled the time of a routing that takes tens of milliseconds
-            with ThreadPoolExecutor(min(jobs, len(blocks))) as pool:
-                parts = list(pool.map(route, blocks))
+        parts = threaded_map(getattr(self._forest, method), blocks, jobs)
         result = np.empty((rows.shape[0], parts[0].shape[1]), dtype=parts[0].dtype)
         result[order] = np.concatenate(parts)
         return result
