@@ -72,7 +72,8 @@ def _partition(columns, direction, orders, buffer, start, end, cut):
 
 
 @njit(cache=True, nogil=True)
-def grow_from_data(rows, columns, lifetime, seed, exponent):
+def grow_from_data(rows, columns, lifetime, seed, exponent, routing, parent, split_time,
+                   leaf_of_point):
     """Grow one Mondrian tree whose cells use the extent of their training points.
 
     Parameters
@@ -90,12 +91,18 @@ def grow_from_data(rows, columns, lifetime, seed, exponent):
     exponent : int
         The offsets are recorded multiplied by ``2**exponent``: in the units
         of the lifted data when ``rows`` hold them divided by that power.
+    routing : ndarray of ROUTING_RECORD, shape (at least 2 n - 1,)
+    parent : ndarray of int32, shape (at least 2 n - 1,)
+    split_time : ndarray of float, shape (at least 2 n - 1,)
+        Receive the tree's nodes in their first ``n_nodes`` entries. The
+        caller allocates them, so that many trees can share large arrays,
+        which the operating system backs with few, large pages.
+    leaf_of_point : ndarray of int32, shape (n,)
+        Receives the leaf of every point.
 
     Returns
     -------
-    records : ndarray of ROUTING_RECORD, shape (n_nodes,)
-    parent, split_time : node arrays
-    leaf_of_point : ndarray of int32, shape (n,)
+    n_nodes : int
 
     Notes
     -----
@@ -126,13 +133,12 @@ def grow_from_data(rows, columns, lifetime, seed, exponent):
     # state; seeding it here makes the tree a function of its seed alone (a Generator
     # argument would cost half a second of typing at the first call of every process)
     np.random.seed(seed)  # noqa: NPY002
-    capacity = 2 * n - 1
-    direction = np.full(capacity, -1, np.int32)
-    offset = np.full(capacity, np.nan)
-    left = np.full(capacity, -1, np.int32)
-    parent = np.full(capacity, -1, np.int32)
-    split_time = np.full(capacity, np.inf)
-    leaf_of_point = np.empty(n, np.int32)
+    # uniforms are drawn in bulk, a quarter of the cost of one call per draw; the
+    # stream and the order of use are those of single draws, so are the trees
+    uniforms = np.empty(_UNIFORMS_PER_REFILL)
+    next_uniform = np.array([_UNIFORMS_PER_REFILL])  # all used: refill at the first draw
+    parent[0] = -1
+    _make_leaf(routing, split_time, 0)
 
     box = np.empty(2 * m)  # box[k] is the lower and box[m + k] the upper end along k
     for k in range(m):
@@ -149,7 +155,8 @@ def grow_from_data(rows, columns, lifetime, seed, exponent):
     orders[0] = np.arange(n)
     n_nodes, set_aside, n_set_aside = _grow_subtree(
         rows, columns, orders, np.arange(n).astype(np.int32), 0, 0.0, box, lifetime,
-        local_limit, direction, offset, left, parent, split_time, leaf_of_point, 1)
+        local_limit, exponent, routing, parent, split_time, leaf_of_point, 1, uniforms,
+        next_uniform)
     for item in range(n_set_aside):
         start, end = int(set_aside[item, 1]), int(set_aside[item, 2])
         points = orders[int(set_aside[item, 3]), start:end].astype(np.int32)
@@ -165,10 +172,19 @@ def grow_from_data(rows, columns, lifetime, seed, exponent):
         box[:] = set_aside[item, 5:]
         n_nodes = _grow_subtree(
             local_rows, np.ascontiguousarray(local_rows.T), local_orders, points,
-            int(set_aside[item, 0]), set_aside[item, 4], box, lifetime, 0, direction, offset,
-            left, parent, split_time, leaf_of_point, n_nodes)[0]
-    return (routing_records(direction[:n_nodes], offset[:n_nodes], left[:n_nodes], exponent),
-            parent[:n_nodes].copy(), split_time[:n_nodes].copy(), leaf_of_point)
+            int(set_aside[item, 0]), set_aside[item, 4], box, lifetime, 0, exponent, routing,
+            parent, split_time, leaf_of_point, n_nodes, uniforms, next_uniform)[0]
+    return n_nodes
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _make_leaf(routing, split_time, node):
+    """Mark ``node`` a leaf: it routes to itself and is never cut."""
+    record = routing[node]
+    record.offset = np.inf
+    record.left = node
+    record.direction = 0
+    split_time[node] = np.inf
 
 
 @njit(cache=True, nogil=True)
@@ -187,21 +203,40 @@ def routing_records(direction, offset, left, exponent):
     return records
 
 
+_UNIFORMS_PER_REFILL = 512
+
+
+@njit(cache=True, nogil=True)
+def _refill(uniforms):
+    uniforms[:] = np.random.random(uniforms.size)  # noqa: NPY002
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _uniform(uniforms, next_uniform):
+    """The next uniform on [0, 1) of the buffer, and the new position in it."""
+    if next_uniform == uniforms.size:
+        _refill(uniforms)
+        next_uniform = 0
+    return uniforms[next_uniform], next_uniform + 1
+
+
 # what stopped _grow_cells: the subtree is done, or an array needs more room
 _DONE, _LOG_FULL, _SET_ASIDE_FULL = 0, 1, 2
 
 
 @njit(cache=True, nogil=True)
 def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifetime,
-                  set_aside_at, direction, offset, left, parent, split_time, leaf_of_point,
-                  n_nodes):
+                  set_aside_at, exponent, routing, parent, split_time, leaf_of_point,
+                  n_nodes, uniforms, next_uniform):
     """Grow the subtree of cell ``root``, which holds all of ``orders[0]``, depth first.
 
     ``columns[:, i]`` are the lifted values of training point
     ``point_ids[i]``; ``box`` holds the root's box on entry. Cells of at
     most ``set_aside_at`` points (other than the root) are not grown but
     returned as rows ``(node, start, end, row of orders, birth, box...)``.
-    Returns the new node count, those rows and their number.
+    Cuts are recorded with their offsets multiplied by ``2**exponent``.
+    Random numbers come from ``uniforms``, whose next unused entry is
+    ``uniforms[next_uniform[0]]``. Returns the new node count, those rows and their number.
     """
     m = columns.shape[0]
     size = orders.shape[1] + 1
@@ -217,9 +252,9 @@ def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifet
     # so the loop stops when one is full and resumes after it has grown
     while True:
         status = _grow_cells(rows, columns, orders, point_ids, root, box, lifetime,
-                             set_aside_at, direction, offset, left, parent, split_time,
+                             set_aside_at, exponent, routing, parent, split_time,
                              leaf_of_point, stack_index, stack_value, log_position,
-                             log_value, set_aside, state)
+                             log_value, set_aside, state, uniforms, next_uniform)
         if status == _DONE:
             return state[2], set_aside, state[3]
         if status == _LOG_FULL:
@@ -231,8 +266,9 @@ def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifet
 
 @njit(cache=True, nogil=True)
 def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside_at,
-                direction, offset, left, parent, split_time, leaf_of_point, stack_index,
-                stack_value, log_position, log_value, set_aside, state):
+                exponent, routing, parent, split_time, leaf_of_point, stack_index,
+                stack_value, log_position, log_value, set_aside, state, uniforms,
+                next_uniform):
     """The depth-first loop of :func:`_grow_subtree`; returns a status, saves ``state``.
 
     A cell is a range of positions in one row of ``orders``; its split writes
@@ -243,6 +279,7 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
     """
     m = columns.shape[0]
     depth, log_length, n_nodes, n_set_aside = state[0], state[1], state[2], state[3]
+    drawn = next_uniform[0]
     widths = np.empty(m)
     lows = np.empty(m)
     status = _DONE
@@ -286,42 +323,49 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
                 continue
         else:
             # a few points: their exact widths cost less than waiting for misses
-            # (whole points from `rows`: m consecutive values each)
+            # (one direction at a time, in registers: the points' rows stay in the L1 cache)
             first_point = orders[buffer, start]
             for k in range(m):
-                lows[k] = rows[first_point, k]
-                widths[k] = rows[first_point, k]
-            for position in range(start + 1, end):
-                point = orders[buffer, position]
-                for k in range(m):
-                    lows[k] = min(lows[k], rows[point, k])
-                    widths[k] = max(widths[k], rows[point, k])
+                lowest = highest = rows[first_point, k]
+                for position in range(start + 1, end):
+                    value = rows[orders[buffer, position], k]
+                    lowest = min(lowest, value)
+                    highest = max(highest, value)
+                lows[k] = lowest
+                widths[k] = highest - lowest
+        if not exact:  # the box's widths, which the misses below may tighten
             for k in range(m):
-                widths[k] -= lows[k]
+                lows[k] = box[k]
+                widths[k] = box[m + k] - box[k]
+        # (summed once per cell; a miss below changes one term)
+        rate = 0.0
+        for k in range(m):
+            rate += widths[k]
 
+        was_cut = False
         while True:
-            rate = 0.0
-            for k in range(m):
-                rate += widths[k] if exact else box[m + k] - box[k]
             if not rate > 0.0:
                 break  # all points of the cell coincide
-            clock += np.random.standard_exponential() / rate  # noqa: NPY002
+            uniform, drawn = _uniform(uniforms, drawn)
+            clock += -np.log(1.0 - uniform) / rate  # an Exp(1) waiting time, as numpy draws it
             if clock > lifetime:
                 break
             # one uniform point on the widths laid end to end picks the direction (∝ width)
             # and, by where it falls inside that width, the uniform offset
-            target = np.random.random() * rate  # noqa: NPY002
+            uniform, drawn = _uniform(uniforms, drawn)
+            target = uniform * rate
             chosen, total = -1, 0.0
             for k in range(m):
-                width = widths[k] if exact else box[m + k] - box[k]
+                width = widths[k]
                 if width > 0.0:
                     total += width
                     chosen = k
                     if target < total:
                         break
+            if chosen < 0:
+                break  # rounding left a rate above zero when every width had shrunk to it
             # (rounding may leave the target at the very end: the last positive width)
-            low = lows[chosen] if exact else box[chosen]
-            width = widths[chosen] if exact else box[m + chosen] - low
+            low, width = lows[chosen], widths[chosen]
             cut = low + min(max(target - (total - width), 0.0), width)
 
             n_left, lowest, highest = _partition(columns, chosen, orders, buffer, start, end,
@@ -333,18 +377,23 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
                                              log_length)
                     log_length = _set_logged(box, m + chosen, highest, log_position,
                                              log_value, log_length)
+                    rate += (highest - lowest) - width
+                    lows[chosen], widths[chosen] = lowest, highest - lowest
                 continue  # (an exact cell misses only when rounding puts the cut on its end)
 
-            direction[node] = chosen
-            offset[node] = cut
-            left[node] = n_nodes
+            record = routing[node]
+            record.offset = np.ldexp(cut, exponent)
+            record.left = n_nodes
+            record.direction = chosen
             split_time[node] = clock
+            was_cut = True
             # the right child waits below the left one, which is grown next
             for side in range(2):
                 child = n_nodes + 1 - side
                 first = start + n_left if side == 0 else start
                 stop = end if side == 0 else start + n_left
                 parent[child] = node
+                _make_leaf(routing, split_time, child)
                 if stop - first == 1:  # one point: a leaf at once
                     leaf_of_point[point_ids[orders[other, first]]] = child
                     continue
@@ -361,10 +410,11 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
                 depth += 1
             n_nodes += 2
             break
-        if direction[node] < 0:
+        if not was_cut:
             for position in range(start, end):
                 leaf_of_point[point_ids[orders[buffer, position]]] = node
     state[0], state[1], state[2], state[3] = depth, log_length, n_nodes, n_set_aside
+    next_uniform[0] = drawn
     return status
 
 
@@ -377,43 +427,40 @@ def _doubled(array):
 
 
 @njit(cache=True, nogil=True)
-def node_sums(parent, leaf_of_point, targets, weights):
-    """Points, weight totals and weighted target sums in every node.
+def node_values(parent, leaf_of_point, targets, weights, counts, values):
+    """Training points and weighted mean target of every node.
 
     Computed from the leaf each point ended in; ``weights`` are the sample
-    weights (all positive; ones when none were given, which leaves every sum
-    exactly as unweighted).
+    weights (all positive; ones when none were given, which leaves every
+    mean exactly as unweighted). An empty node takes the value of its
+    nearest non-empty ancestor. Writes ``counts`` (n_nodes,) and ``values``
+    (n_nodes, n_outputs); the sums become the means in place, so the only
+    scratch array is the weight totals.
     """
     n_nodes = parent.size
-    counts = np.zeros(n_nodes, np.int32)
+    n_outputs = targets.shape[1]
+    counts[:] = 0
+    values[:] = 0.0
     totals = np.zeros(n_nodes)
-    sums = np.zeros((n_nodes, targets.shape[1]))
     for i in range(leaf_of_point.size):
         leaf = leaf_of_point[i]
         counts[leaf] += 1
         totals[leaf] += weights[i]
-        for k in range(targets.shape[1]):
-            sums[leaf, k] += weights[i] * targets[i, k]
+        for k in range(n_outputs):
+            values[leaf, k] += weights[i] * targets[i, k]
     for node in range(n_nodes - 1, 0, -1):  # children have larger ids than their parent
         above = parent[node]
         counts[above] += counts[node]
         totals[above] += totals[node]
-        for k in range(targets.shape[1]):
-            sums[above, k] += sums[node, k]
-    return counts, totals, sums
-
-
-@njit(cache=True, nogil=True)
-def node_means(parent, totals, sums):
-    """Weighted mean target per node; an empty node takes its nearest non-empty ancestor's."""
-    values = np.zeros(sums.shape)
-    for node in range(parent.size):  # parents come first
+        for k in range(n_outputs):
+            values[above, k] += values[node, k]
+    for node in range(n_nodes):  # parents first: an empty node copies a finished mean
         if totals[node] > 0:
-            for k in range(sums.shape[1]):
-                values[node, k] = sums[node, k] / totals[node]
+            for k in range(n_outputs):
+                values[node, k] /= totals[node]
         elif node > 0:
-            values[node] = values[parent[node]]
-    return values
+            for k in range(n_outputs):
+                values[node, k] = values[parent[node], k]
 
 
 # points routed together: their independent loads overlap in the memory system

@@ -29,7 +29,7 @@ from ..lift import LiftMatrix
 from . import _compiled
 from ._lifetime import lifetime_grid
 from ._lifting import Lifting, binary_exponent, times_power_of_two
-from ._tree import Forest, StitTree, on_lifted_clock, prune, tree_from_growth
+from ._tree import Forest, NodeStore, StitTree, on_lifted_clock, prune, tree_from_growth
 from ._window import grow_in_window, window_widths
 
 _SEED_BOUND = np.iinfo(np.int32).max
@@ -370,12 +370,17 @@ def _warn_if_out_of_range(lifetime: float, rescaled: float, exponent: int) -> No
 # ---------------------------------------------------------------- batch workers
 def _grow_data_batch(rows, columns, targets, weights, lifetime, exponent, seeds):
     """Grown trees (offsets in lifted units, times on the rescaled clock), with leaves."""
+    n_samples = rows.shape[0]
+    # a tree has at most 2 n - 1 nodes (every cut splits the points of its cell)
+    store = NodeStore(len(seeds) * (2 * n_samples - 1), targets.shape[1])
+    leaves = np.empty((len(seeds), n_samples), np.int32)
     grown = []
-    for seed in seeds:
-        routing, parent, split_time, leaf_of_point = _compiled.grow_from_data(
-            rows, columns, lifetime, seed, exponent)
-        counts, totals, sums = _compiled.node_sums(parent, leaf_of_point, targets, weights)
-        tree = tree_from_growth(routing, parent, split_time, counts, totals, sums, lifetime)
+    for seed, leaf_of_point in zip(seeds, leaves, strict=True):
+        n_nodes = _compiled.grow_from_data(rows, columns, lifetime, seed, exponent,
+                                           *store.room(), leaf_of_point)
+        routing, parent, split_time, counts, value = store.take(n_nodes)
+        _compiled.node_values(parent, leaf_of_point, targets, weights, counts, value)
+        tree = tree_from_growth(routing, parent, split_time, counts, value, lifetime)
         grown.append((tree, leaf_of_point))
     return grown
 
@@ -391,7 +396,7 @@ def _grow_window_batch(normals, upper, lifetime, exponent, lifted_center, seeds)
         n_nodes = direction.size
         partitions.append(tree_from_growth(
             routing, nodes["parent"], nodes["split_time"], np.zeros(n_nodes, np.int32),
-            np.zeros(n_nodes), np.zeros((n_nodes, 0)), lifetime))
+            np.zeros((n_nodes, 0)), lifetime))
     return partitions
 
 
@@ -409,8 +414,10 @@ def _leave_one_out_batch(trees, leaves, outputs, targets, centre, weights, grid)
 
 def _filled(tree: StitTree, leaf_of_point: np.ndarray, targets: np.ndarray,
             weights: np.ndarray) -> StitTree:
-    counts, totals, sums = _compiled.node_sums(tree.parent, leaf_of_point, targets, weights)
-    return tree_from_growth(tree.routing, tree.parent, tree.split_time, counts, totals, sums,
+    counts = np.empty(tree.n_nodes, np.int32)
+    value = np.empty((tree.n_nodes, targets.shape[1]))
+    _compiled.node_values(tree.parent, leaf_of_point, targets, weights, counts, value)
+    return tree_from_growth(tree.routing, tree.parent, tree.split_time, counts, value,
                             tree.lifetime)
 
 

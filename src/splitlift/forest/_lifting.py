@@ -100,8 +100,12 @@ def binary_exponent(largest: float) -> int:
     return int(np.frexp(largest)[1]) if largest > 0 else 0
 
 
-def times_power_of_two(values: np.ndarray, exponent: int) -> np.ndarray:
-    """``values * 2**exponent``, exactly (a multiplication where ``2**exponent`` is a double)."""
+def times_power_of_two(values: np.ndarray, exponent: int,
+                       out: np.ndarray | None = None) -> np.ndarray:
+    """``values * 2**exponent``, exactly (a multiplication where ``2**exponent`` is a double).
+
+    ``out``, as in numpy's ufuncs, receives the result instead of a new array.
+    """
     if abs(exponent) <= 1000:
-        return values * np.ldexp(1.0, exponent)
-    return np.ldexp(values, exponent)
+        return np.multiply(values, np.ldexp(1.0, exponent), out=out)
+    return np.ldexp(values, exponent, out=out)
