@@ -1,11 +1,14 @@
 """Growth from data: the stale-box construction has the law of the data-extent Mondrian tree."""
 
+import pickle
+
 import numpy as np
 from scipy import stats
 from sklearn.ensemble import ExtraTreesRegressor
 
 from splitlift.forest import StitForestRegressor
 from splitlift.forest._compiled import EXACT_EXTENT_BELOW
+from splitlift.forest._tree import prune, prune_all
 
 
 def _cells_near_the_root(tree, X, max_depth):
@@ -104,3 +107,37 @@ def test_memory_per_tree_is_below_scikit_learn_for_the_same_leaves():
         our_bytes = sum(getattr(tree, name).nbytes for name in
                         ("routing", "parent", "split_time", "n_node_samples", "value"))
         assert our_bytes <= reference_bytes
+
+
+def test_trees_sharing_a_node_store_are_independent_and_pickle_alone():
+    # Trees of one batch are views into shared arrays: each must hold exactly its own
+    # nodes, be unaffected by its neighbours, and pickle without the others' nodes.
+    rng = np.random.default_rng(8)
+    X = rng.normal(size=(500, 3))
+    y = X[:, 0] + rng.normal(size=500)
+    forest = StitForestRegressor(lifetime=np.inf, n_trees=6, random_state=9).fit(X, y)
+    alone = [StitForestRegressor(lifetime=np.inf, n_trees=6, random_state=9, n_jobs=n_jobs)
+             .fit(X, y) for n_jobs in (2, 3)]  # other batchings: other neighbours
+    for k, tree in enumerate(forest.trees_):
+        assert tree.n_nodes == 2 * 500 - 1  # one leaf per distinct point
+        assert tree.nbytes == tree.n_nodes * (16 + 4 + 8 + 4 + 8)
+        copy = pickle.loads(pickle.dumps(tree))
+        assert len(pickle.dumps(tree)) < 2 * tree.nbytes
+        for other in (copy, alone[0].trees_[k], alone[1].trees_[k]):
+            for name in ("routing", "parent", "split_time", "n_node_samples", "value"):
+                np.testing.assert_array_equal(getattr(other, name), getattr(tree, name))
+
+
+def test_pruning_a_batch_equals_pruning_each_tree_alone():
+    rng = np.random.default_rng(10)
+    X = rng.normal(size=(400, 3))
+    y = X[:, 1] + rng.normal(size=400)
+    trees = StitForestRegressor(lifetime=np.inf, n_trees=5, random_state=11).fit(X, y).trees_
+    for lifetime in (0.3, 3.0, np.inf):
+        one_by_one = [prune(tree, lifetime) for tree in trees]
+        for n_threads in (1, 2):
+            batch = prune_all(trees, lifetime, n_threads)
+            for single, batched in zip(one_by_one, batch, strict=True):
+                assert batched.n_nodes == single.n_nodes
+                for name in ("routing", "parent", "split_time", "n_node_samples", "value"):
+                    np.testing.assert_array_equal(getattr(batched, name), getattr(single, name))

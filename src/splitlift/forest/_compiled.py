@@ -587,8 +587,22 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
 
 
 @njit(cache=True, nogil=True)
-def prune_tree(routing, parent, split_time, counts, value, lifetime):
-    """The tree at a smaller lifetime: cells born later dropped, later cuts made leaves."""
+def n_born_by(parent, split_time, lifetime):
+    """Nodes of a tree born at or before ``lifetime``: the size of the pruned tree."""
+    kept = 1
+    for node in range(1, parent.size):
+        kept += split_time[parent[node]] <= lifetime
+    return kept
+
+
+@njit(cache=True, nogil=True)
+def prune_tree(routing, parent, split_time, counts, value, lifetime, pruned, pruned_parent,
+               pruned_split, pruned_counts, pruned_value):
+    """The tree at a smaller lifetime: cells born later dropped, later cuts made leaves.
+
+    Writes the pruned tree's nodes to the ``pruned*`` arrays, whose length
+    is :func:`n_born_by`.
+    """
     n_nodes = parent.size
     new_id = np.full(n_nodes, -1, np.int64)
     kept = 0
@@ -597,11 +611,6 @@ def prune_tree(routing, parent, split_time, counts, value, lifetime):
         if birth <= lifetime:
             new_id[node] = kept
             kept += 1
-    pruned = np.empty(kept, ROUTING_RECORD)
-    pruned_parent = np.empty(kept, np.int32)
-    pruned_split = np.empty(kept)
-    pruned_counts = np.empty(kept, np.int32)
-    pruned_value = np.empty((kept, value.shape[1]))
     n_outputs = value.shape[1]
     for node in range(n_nodes):  # field by field: whole-record and row copies cost more
         target = new_id[node]
@@ -622,7 +631,6 @@ def prune_tree(routing, parent, split_time, counts, value, lifetime):
         pruned_counts[target] = counts[node]
         for k in range(n_outputs):
             pruned_value[target, k] = value[node, k]
-    return pruned, pruned_parent, pruned_split, pruned_counts, pruned_value
 
 
 @njit(cache=True, nogil=True)

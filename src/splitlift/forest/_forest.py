@@ -29,7 +29,7 @@ from ..lift import LiftMatrix
 from . import _compiled
 from ._lifetime import lifetime_grid
 from ._lifting import Lifting, binary_exponent, times_power_of_two
-from ._tree import Forest, NodeStore, StitTree, on_lifted_clock, prune, tree_from_growth
+from ._tree import Forest, NodeStore, StitTree, on_lifted_clock, prune_all, tree_from_growth
 from ._window import grow_in_window, window_widths
 
 _SEED_BOUND = np.iinfo(np.int32).max
@@ -187,7 +187,7 @@ class _StitForest(BaseEstimator):
         chosen, path = self._tune(trees, [leaves for _, leaves in grown], targets, weights,
                                   grid)
         if not np.isinf(chosen):  # at inf every grown tree is its own pruned tree
-            trees = [prune(tree, chosen) for tree in trees]
+            trees = prune_all(trees, chosen, effective_n_jobs(self.n_jobs))
         return trees, exponent, grid, path
 
     def _grow_in_window(self, linear, lifted_center, half, lifted, targets, weights, lifetime,
@@ -224,7 +224,7 @@ class _StitForest(BaseEstimator):
                 chosen, path = grid[0], None  # one point: every cell predicts the same value
             else:
                 chosen, path = self._tune(trees, leaves, targets, weights, grid)
-            trees = [prune(tree, chosen) for tree in trees]
+            trees = prune_all(trees, chosen, effective_n_jobs(self.n_jobs))
         return trees, exponent, grid, path
 
     def _tune(self, trees: list[StitTree], leaves: list[np.ndarray], targets, weights, grid):

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .._progress import threaded_map
 from . import _compiled
 from ._lifting import times_power_of_two
 
@@ -213,8 +214,21 @@ def prune(tree: StitTree, lifetime: float) -> StitTree:
     Mondrian trees are nested in the lifetime (Lakshminarayanan, Roy & Teh
     2014), so this has the law of a tree grown to ``lifetime`` directly.
     """
-    routing, parent, split_time, counts, value = _compiled.prune_tree(
-        tree.routing, tree.parent, tree.split_time, tree.n_node_samples, tree.value,
-        float(lifetime))
-    return StitTree(routing=routing, parent=parent, split_time=split_time,
-                    n_node_samples=counts, value=value, lifetime=float(lifetime))
+    return prune_all([tree], lifetime)[0]
+
+
+def prune_all(trees: list[StitTree], lifetime: float, n_threads: int = 1) -> list[StitTree]:
+    """:func:`prune` for every tree, their nodes in one :class:`NodeStore`, on threads."""
+    lifetime = float(lifetime)
+    sizes = [_compiled.n_born_by(tree.parent, tree.split_time, lifetime) for tree in trees]
+    store = NodeStore(sum(sizes), trees[0].value.shape[1])
+    parts = [store.take(size) for size in sizes]
+
+    def pruned(index: int) -> StitTree:
+        tree, (routing, parent, split_time, counts, value) = trees[index], parts[index]
+        _compiled.prune_tree(tree.routing, tree.parent, tree.split_time, tree.n_node_samples,
+                             tree.value, lifetime, routing, parent, split_time, counts, value)
+        return StitTree(routing=routing, parent=parent, split_time=split_time,
+                        n_node_samples=counts, value=value, lifetime=lifetime)
+
+    return threaded_map(pruned, range(len(trees)), n_threads)
