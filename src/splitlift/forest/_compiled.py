@@ -17,7 +17,7 @@ from numba import njit
 # Cells with at most this many points measure their exact extent along every
 # direction at once (m × count reads); larger cells keep a stale box and tighten
 # it one direction at a time, only when a proposed cut misses their points.
-EXACT_EXTENT_BELOW = 8
+EXACT_EXTENT_BELOW = 16
 # A cell whose lifted values fit in this many bytes is grown from a compact copy
 # of its points, so the passes over its columns stay in the core's cache.
 LOCAL_CELL_BYTES = 1 << 18
@@ -321,11 +321,45 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
                     set_aside[n_set_aside, 5 + k] = box[k]
                 n_set_aside += 1
                 continue
-        else:
-            # a few points: their exact widths cost less than waiting for misses
-            # (one direction at a time, in registers: the points' rows stay in the L1 cache)
-            first_point = orders[buffer, start]
+            # the box's widths, which the misses below may tighten; the rate is summed
+            # once per cell, and a miss changes one term
+            rate = 0.0
             for k in range(m):
+                lows[k] = box[k]
+                widths[k] = box[m + k] - box[k]
+                rate += widths[k]
+        else:
+            # a few points: their exact widths cost less than waiting for misses (four
+            # directions at a time, in registers: four independent chains of comparisons
+            # over the points' rows, which stay in the L1 cache; the rest one at a time)
+            first_point = orders[buffer, start]
+            rate = 0.0
+            k = 0
+            while k + 4 <= m:
+                l0 = h0 = rows[first_point, k]
+                l1 = h1 = rows[first_point, k + 1]
+                l2 = h2 = rows[first_point, k + 2]
+                l3 = h3 = rows[first_point, k + 3]
+                for position in range(start + 1, end):
+                    point = orders[buffer, position]
+                    v0 = rows[point, k]
+                    v1 = rows[point, k + 1]
+                    v2 = rows[point, k + 2]
+                    v3 = rows[point, k + 3]
+                    l0 = v0 if v0 < l0 else l0
+                    l1 = v1 if v1 < l1 else l1
+                    l2 = v2 if v2 < l2 else l2
+                    l3 = v3 if v3 < l3 else l3
+                    h0 = v0 if v0 > h0 else h0
+                    h1 = v1 if v1 > h1 else h1
+                    h2 = v2 if v2 > h2 else h2
+                    h3 = v3 if v3 > h3 else h3
+                lows[k], lows[k + 1], lows[k + 2], lows[k + 3] = l0, l1, l2, l3
+                w0, w1, w2, w3 = h0 - l0, h1 - l1, h2 - l2, h3 - l3
+                widths[k], widths[k + 1], widths[k + 2], widths[k + 3] = w0, w1, w2, w3
+                rate += (w0 + w1) + (w2 + w3)
+                k += 4
+            while k < m:
                 lowest = highest = rows[first_point, k]
                 for position in range(start + 1, end):
                     value = rows[orders[buffer, position], k]
@@ -333,14 +367,8 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
                     highest = max(highest, value)
                 lows[k] = lowest
                 widths[k] = highest - lowest
-        if not exact:  # the box's widths, which the misses below may tighten
-            for k in range(m):
-                lows[k] = box[k]
-                widths[k] = box[m + k] - box[k]
-        # (summed once per cell; a miss below changes one term)
-        rate = 0.0
-        for k in range(m):
-            rate += widths[k]
+                rate += widths[k]
+                k += 1
 
         was_cut = False
         while True:
