@@ -581,6 +581,14 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
         leaf = leaf_of_point[point]
         members[cursor[leaf]] = point
         cursor[leaf] += 1
+    # weights and targets in the members' order: the loop below reads them in sequence
+    n_outputs = targets.shape[1]
+    member_weights = np.empty(members.size)
+    member_targets = np.empty((n_outputs, members.size))
+    for position in range(members.size):
+        member_weights[position] = weights[members[position]]
+        for k in range(n_outputs):
+            member_targets[k, position] = targets[members[position], k]
     totals = np.zeros(n_nodes)  # weight of the training points in every node
     for point in range(leaf_of_point.size):
         totals[leaf_of_point[point]] += weights[point]
@@ -603,15 +611,15 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
         if first >= stop or counts[node] == 0:
             continue
         source = holder[node]
-        for position in range(start[node], start[node] + counts[node]):
-            point = members[position]
-            share = 1.0 / (totals[source] - weights[point])
-            for k in range(targets.shape[1]):
-                prediction = ((value[source, k] * totals[source]
-                               - weights[point] * targets[point, k]) * share)
-                total[k, first, point] += prediction
-                if stop < n_grid:
-                    total[k, stop, point] -= prediction
+        weight_total = totals[source]
+        for k in range(n_outputs):
+            numerator = value[source, k] * weight_total
+            for position in range(start[node], start[node] + counts[node]):
+                prediction = ((numerator - member_weights[position] * member_targets[k, position])
+                              * (1.0 / (weight_total - member_weights[position])))
+                total[k, first, members[position]] += prediction
+                if stop < n_grid:  # (the same every turn: the compiler hoists it)
+                    total[k, stop, members[position]] -= prediction
 
 
 @njit(cache=True, nogil=True)

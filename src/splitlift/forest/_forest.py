@@ -250,9 +250,15 @@ class _StitForest(BaseEstimator):
                 for start in range(0, len(trees), _TREES_PER_BATCH)
             )
             total = None
-            for batch in batches:
-                total = batch if total is None else total + batch
-            errors += (weights * (total / len(trees) - part.T[:, None, :]) ** 2).sum(axis=(0, 2))
+            for batch in batches:  # (in place: fresh arrays cost page faults)
+                if total is None:
+                    total = batch
+                else:
+                    total += batch
+            total /= len(trees)
+            total -= part.T[:, None, :]
+            np.square(total, out=total)
+            errors += (weights * total).sum(axis=(0, 2))
         path = errors / weights.sum()
         return float(grid[int(np.argmin(path))]), path
 
@@ -409,7 +415,7 @@ def _leave_one_out_batch(trees, leaves, outputs, targets, centre, weights, grid)
         _compiled.add_leave_one_out(tree.routing, tree.parent, tree.split_time,
                                     tree.n_node_samples, value, leaf_of_point, targets,
                                     weights, grid, differences)
-    return np.cumsum(differences, axis=1)
+    return np.cumsum(differences, axis=1, out=differences)
 
 
 def _filled(tree: StitTree, leaf_of_point: np.ndarray, targets: np.ndarray,
