@@ -570,33 +570,33 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     n_nodes = parent.size
     n_grid = grid.size
     start = np.zeros(n_nodes, np.int64)
+    holder = np.zeros(n_nodes, np.int64)  # nearest ancestor-or-self with two points or more
     for node in range(n_nodes):  # parents first: children split the parent's run
         child = routing[node].left
         if child != node:
             start[child] = start[node]
             start[child + 1] = start[node] + counts[child]
+            holder[child] = child if counts[child] > 1 else holder[node]
+            holder[child + 1] = child + 1 if counts[child + 1] > 1 else holder[node]
+    # the points in subtree order, with their weights and targets, which the loop below
+    # then reads in sequence; and the weight of the points in every leaf
+    n_outputs = targets.shape[1]
     cursor = start.copy()
     members = np.empty(leaf_of_point.size, np.int64)
-    for point in range(leaf_of_point.size):
-        leaf = leaf_of_point[point]
-        members[cursor[leaf]] = point
-        cursor[leaf] += 1
-    # weights and targets in the members' order: the loop below reads them in sequence
-    n_outputs = targets.shape[1]
     member_weights = np.empty(members.size)
     member_targets = np.empty((n_outputs, members.size))
-    for position in range(members.size):
-        member_weights[position] = weights[members[position]]
-        for k in range(n_outputs):
-            member_targets[k, position] = targets[members[position], k]
-    totals = np.zeros(n_nodes)  # weight of the training points in every node
+    totals = np.zeros(n_nodes)
     for point in range(leaf_of_point.size):
-        totals[leaf_of_point[point]] += weights[point]
+        leaf = leaf_of_point[point]
+        position = cursor[leaf]
+        cursor[leaf] += 1
+        members[position] = point
+        member_weights[position] = weights[point]
+        for k in range(n_outputs):
+            member_targets[k, position] = targets[point, k]
+        totals[leaf] += weights[point]
     for node in range(n_nodes - 1, 0, -1):  # children have larger ids than their parent
         totals[parent[node]] += totals[node]
-    holder = np.zeros(n_nodes, np.int64)  # nearest ancestor-or-self with two points or more
-    for node in range(1, n_nodes):
-        holder[node] = node if counts[node] > 1 else holder[parent[node]]
     # node serves grid[first:stop]; its first is where its parent's run stopped
     stops = np.empty(n_nodes, np.int64)
     for node in range(n_nodes):
@@ -620,6 +620,20 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
                 total[k, first, members[position]] += prediction
                 if stop < n_grid:  # (the same every turn: the compiler hoists it)
                     total[k, stop, members[position]] -= prediction
+
+
+@njit(cache=True, nogil=True)
+def running_sum_over_lifetimes(differences):
+    """In place, the cumulative sum over axis 1 of (outputs, grid, n) differences.
+
+    The same additions in the same order as ``np.cumsum(differences,
+    axis=1)``, along contiguous rows: a tenth of numpy's time on this
+    layout.
+    """
+    for k in range(differences.shape[0]):
+        for g in range(1, differences.shape[1]):
+            for i in range(differences.shape[2]):
+                differences[k, g, i] += differences[k, g - 1, i]
 
 
 @njit(cache=True, nogil=True)

@@ -415,7 +415,8 @@ def _leave_one_out_batch(trees, leaves, outputs, targets, centre, weights, grid)
         _compiled.add_leave_one_out(tree.routing, tree.parent, tree.split_time,
                                     tree.n_node_samples, value, leaf_of_point, targets,
                                     weights, grid, differences)
-    return np.cumsum(differences, axis=1, out=differences)
+    _compiled.running_sum_over_lifetimes(differences)
+    return differences
 
 
 def _filled(tree: StitTree, leaf_of_point: np.ndarray, targets: np.ndarray,
