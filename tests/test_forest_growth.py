@@ -173,3 +173,16 @@ def test_pruning_a_batch_equals_pruning_each_tree_alone():
                 assert batched.n_nodes == single.n_nodes
                 for name in ("routing", "parent", "split_time", "n_node_samples", "value"):
                     np.testing.assert_array_equal(getattr(batched, name), getattr(single, name))
+
+
+def test_trees_at_a_finite_lifetime_own_arrays_of_their_size():
+    # At a finite lifetime trees need far less room than 2 n - 1 nodes: each keeps arrays
+    # of its own size, not a view into room reserved for a batch.
+    rng = np.random.default_rng(15)
+    X = rng.normal(size=(2000, 3))
+    forest = StitForestRegressor(lifetime=1.0, n_trees=4, random_state=16).fit(X, X[:, 0])
+    for tree in forest.trees_:
+        assert tree.n_nodes < 2 * 2000 - 1
+        for name in ("routing", "parent", "split_time", "n_node_samples", "value"):
+            array = getattr(tree, name)
+            assert array.base is None and len(array) == tree.n_nodes
