@@ -1,6 +1,7 @@
 """Growth from data: the stale-box construction has the law of the data-extent Mondrian tree."""
 
 import pickle
+from itertools import pairwise
 
 import numpy as np
 import pytest
@@ -175,14 +176,19 @@ def test_pruning_a_batch_equals_pruning_each_tree_alone():
                     np.testing.assert_array_equal(getattr(batched, name), getattr(single, name))
 
 
-def test_trees_at_a_finite_lifetime_own_arrays_of_their_size():
-    # At a finite lifetime trees need far less room than 2 n - 1 nodes: each keeps arrays
-    # of its own size, not a view into room reserved for a batch.
+def test_trees_at_a_finite_lifetime_are_packed_without_gaps():
+    # At a finite lifetime trees need far less room than 2 n - 1 nodes: the trees of a
+    # batch follow one another in their store, so the room reserved for a tree that
+    # could fill it is shared, not left between them.
     rng = np.random.default_rng(15)
     X = rng.normal(size=(2000, 3))
-    forest = StitForestRegressor(lifetime=1.0, n_trees=4, random_state=16).fit(X, X[:, 0])
-    for tree in forest.trees_:
-        assert tree.n_nodes < 2 * 2000 - 1
-        for name in ("routing", "parent", "split_time", "n_node_samples", "value"):
-            array = getattr(tree, name)
-            assert array.base is None and len(array) == tree.n_nodes
+    forest = StitForestRegressor(lifetime=1.0, n_trees=12, random_state=16).fit(X, X[:, 0])
+    trees = forest.trees_
+    assert all(tree.n_nodes < 2 * 2000 - 1 for tree in trees)
+    neighbours = 0
+    for before, after in pairwise(trees):
+        if after.parent.base is before.parent.base:  # same store: the next tree starts
+            end = before.parent.__array_interface__["data"][0] + before.parent.nbytes
+            assert after.parent.__array_interface__["data"][0] == end
+            neighbours += 1
+    assert neighbours >= 4  # 12 trees in 4 batches of 3 on one job

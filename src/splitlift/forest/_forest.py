@@ -42,6 +42,8 @@ _BLOCK = 2048
 _TREES_PER_BATCH = 8
 # Bytes of one batch's leave-one-out predictions (points x lifetimes x outputs).
 _TUNING_BYTES = 1 << 27
+# trees of a batch share node stores of at most about this size (see _grow_data_batch)
+_STORE_BYTES = 1 << 28
 # Points per leaf of the k-d ordering that keeps a cell's training points close in memory.
 _LOCALITY_LEAF = 8
 
@@ -375,26 +377,29 @@ def _warn_if_out_of_range(lifetime: float, rescaled: float, exponent: int) -> No
 
 # ---------------------------------------------------------------- batch workers
 def _grow_data_batch(rows, columns, targets, weights, lifetime, exponent, seeds):
-    """Grown trees (offsets in lifted units, times on the rescaled clock), with leaves."""
-    n_samples = rows.shape[0]
-    capacity = 2 * n_samples - 1  # at most: every cut splits the points of its cell
-    # Grown to the end, a tree on distinct points fills its room, so the trees of the batch
-    # share one store. At a finite lifetime a tree may need far less: each grows in the
-    # same room and keeps a copy of its own size, so no batch reserves room it never uses.
-    full_growth = bool(np.isinf(lifetime))
-    store = NodeStore(capacity * (len(seeds) if full_growth else 1), targets.shape[1])
+    """Grown trees (offsets in lifted units, times on the rescaled clock), with leaves.
+
+    Trees are packed into shared stores of at most about ``_STORE_BYTES``: a
+    new store opens when the free room is less than a tree could need
+    (2 n - 1 nodes: every cut splits the points of its cell). Trees grown to
+    the end on distinct points fill that room; at a finite lifetime they
+    need far less, and the room they leave is never touched, so never mapped.
+    """
+    n_samples, n_outputs = rows.shape[0], targets.shape[1]
+    capacity = 2 * n_samples - 1
+    per_store = max(1, min(len(seeds), _STORE_BYTES // (capacity * (32 + 8 * n_outputs))))
+    store = None
     leaves = np.empty((len(seeds), n_samples), np.int32)
     grown = []
     for seed, leaf_of_point in zip(seeds, leaves, strict=True):
-        if not full_growth:
-            store.used = 0
+        if store is None or store.free < capacity:
+            store = NodeStore(capacity * per_store, n_outputs)
         n_nodes = _compiled.grow_from_data(rows, columns, lifetime, seed, exponent,
                                            *store.room(), leaf_of_point)
-        nodes = store.take(n_nodes)  # routing, parent, split time, counts, value
-        _compiled.node_values(nodes[1], leaf_of_point, targets, weights, nodes[3], nodes[4])
-        if not full_growth:
-            nodes = tuple(array.copy() for array in nodes)
-        grown.append((tree_from_growth(*nodes, lifetime), leaf_of_point))
+        routing, parent, split_time, counts, value = store.take(n_nodes)
+        _compiled.node_values(parent, leaf_of_point, targets, weights, counts, value)
+        tree = tree_from_growth(routing, parent, split_time, counts, value, lifetime)
+        grown.append((tree, leaf_of_point))
     return grown
 
 

@@ -191,6 +191,11 @@ class NodeStore:
         self.value = np.empty((n_nodes, n_outputs))
         self.used = 0
 
+    @property
+    def free(self) -> int:
+        """Entries not yet taken."""
+        return self.parent.size - self.used
+
     def room(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """The routing, parent and split-time entries not yet taken."""
         return (self.routing[self.used :], self.parent[self.used :],
