@@ -28,10 +28,12 @@ SAND2008-6212, Sandia National Laboratories.
 
 from __future__ import annotations
 
+from contextlib import nullcontext
 from dataclasses import dataclass, replace
 
 import numpy as np
 
+from ._blas import one_blas_thread
 from .moments import (
     SliceScheme,
     _row_chunks,
@@ -44,6 +46,8 @@ from .moments import (
 
 # Rows that _one_product_likely looks at.
 _SCREEN_ROWS = 1024
+# products X^T X of at most this many columns run on one BLAS thread (see _blas)
+_THIN_COLUMNS = 64
 
 # Column sums of squares inside this range cannot overflow or underflow in
 # any product the methods form; outside it the block is rescaled by powers
@@ -590,6 +594,11 @@ def _one_product_likely(X: np.ndarray) -> bool:
     return _raw_sums_accurate(head.mean(axis=0), squares, head.shape[0])
 
 
+def _one_blas_thread_if_thin(n_columns: int):
+    """:func:`splitlift._blas.one_blas_thread` for at most ``_THIN_COLUMNS`` columns."""
+    return one_blas_thread() if n_columns <= _THIN_COLUMNS else nullcontext()
+
+
 def _unshifted_statistics(X, y, scheme, labels, response: bool) -> MomentStatistics | None:
     """Unweighted statistics from one symmetric product and one more pass, or None.
 
@@ -601,8 +610,10 @@ def _unshifted_statistics(X, y, scheme, labels, response: bool) -> MomentStatist
     sends the caller down the general, shifted path.
     """
     n, d = X.shape
-    with np.errstate(over="ignore", invalid="ignore"):  # extreme columns: checked next
-        second = X.T @ X
+    # (one BLAS thread for a thin product: its spinning workers would slow the compiled
+    # pass that follows)
+    with np.errstate(over="ignore", invalid="ignore"), _one_blas_thread_if_thin(d):
+        second = X.T @ X  # extreme columns: checked next
     squares = np.diag(second)
     if not _in_safe_range(squares):  # before any sums are formed from extreme columns
         return None

@@ -10,7 +10,6 @@ routing and the choice of the lifetime run in compiled kernels
 from __future__ import annotations
 
 import warnings
-from functools import cache
 from numbers import Integral, Real
 
 import numpy as np
@@ -21,8 +20,8 @@ from sklearn.utils import check_random_state
 from sklearn.utils._param_validation import Interval, StrOptions
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
-from threadpoolctl import ThreadpoolController
 
+from .._blas import one_blas_thread
 from .._progress import threaded_map
 from .._validation import check_finite_matrix, check_sample_weight
 from ..lift import LiftMatrix
@@ -335,20 +334,10 @@ _NEVER_STOPS = (
 )
 
 
-@cache
-def _blas_controller() -> ThreadpoolController:
-    return ThreadpoolController()
-
-
 def _lift_in_one_blas_thread(lifting: Lifting, X: np.ndarray) -> np.ndarray:
-    """``lifting(X)`` with BLAS on one thread.
-
-    OpenBLAS threads spin for a while after a product; on a small machine they
-    then take the cores from the routing or growth threads that follow (they
-    made a 40 ms prediction take 65 ms on two cores). The lift is one thin
-    product, cheap on one thread.
-    """
-    with _blas_controller().limit(limits=1, user_api="blas"):
+    """``lifting(X)`` with BLAS on one thread: the lift is one thin product, and the
+    routing or growth threads that follow need the cores (see :func:`one_blas_thread`)."""
+    with one_blas_thread():
         return lifting(X)
 
 

@@ -176,11 +176,13 @@ def on_lifted_clock(tree: StitTree, exponent: int) -> StitTree:
 class NodeStore:
     """Room for the nodes of several trees in shared arrays, handed out in order.
 
-    One large allocation per array instead of one per tree: numpy asks the
-    operating system to back allocations of 4 MB and more with huge pages
-    (where it allows them), and fresh pages, one fault each, otherwise took
-    a third of the time to grow a forest of large trees. Trees take views;
-    entries never handed out are never touched, so they stay unmapped.
+    Growth writes each tree's nodes straight into this room, with no
+    full-size scratch arrays and copies per tree. Fresh memory costs one
+    fault per page at its first write, and that had taken about a third of
+    the time to grow 100 trees at n = 1e5 (243 000 faults; 18 000 with the
+    store, as numpy asks for huge pages on allocations of 4 MB and more
+    where the system allows). Trees take views; entries never handed out are
+    never written, so they stay unmapped.
     """
 
     def __init__(self, n_nodes: int, n_outputs: int):
@@ -213,6 +215,8 @@ def tree_from_growth(routing, parent, split_time, counts, value, lifetime: float
     """A :class:`StitTree` from grown node arrays and the nodes' counts and values."""
     return StitTree(routing=routing, parent=parent, split_time=split_time,
                     n_node_samples=counts, value=value, lifetime=float(lifetime))
+
+
 def prune(tree: StitTree, lifetime: float) -> StitTree:
     """The tree at a smaller lifetime: drop cells born later, turn later cuts into leaves.
 
