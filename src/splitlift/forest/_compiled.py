@@ -21,6 +21,8 @@ EXACT_EXTENT_BELOW = 16
 # A cell whose lifted values fit in this many bytes is grown from a compact copy
 # of its points, so the passes over its columns stay in the core's cache.
 LOCAL_CELL_BYTES = 1 << 18
+# Uniforms drawn per call of numba's generator (a quarter of the cost of one call per draw).
+_UNIFORMS_PER_REFILL = 512
 
 
 #: One routing record per node, 16 bytes, so a step down the tree reads one cache line. A
@@ -133,8 +135,8 @@ def grow_from_data(rows, columns, lifetime, seed, exponent, routing, parent, spl
     # state; seeding it here makes the tree a function of its seed alone (a Generator
     # argument would cost half a second of typing at the first call of every process)
     np.random.seed(seed)  # noqa: NPY002
-    # uniforms are drawn in bulk, a quarter of the cost of one call per draw; the
-    # stream and the order of use are those of single draws, so are the trees
+    # uniforms are drawn in bulk; the stream and the order of use are those of single
+    # draws, so are the trees
     uniforms = np.empty(_UNIFORMS_PER_REFILL)
     next_uniform = np.array([_UNIFORMS_PER_REFILL])  # all used: refill at the first draw
     parent[0] = -1
@@ -201,9 +203,6 @@ def routing_records(direction, offset, left, exponent):
             records[node].left = left[node]
             records[node].direction = direction[node]
     return records
-
-
-_UNIFORMS_PER_REFILL = 512
 
 
 @njit(cache=True, nogil=True)

@@ -376,7 +376,8 @@ def _grow_data_batch(rows, columns, targets, weights, lifetime, exponent, seeds)
     """
     n_samples, n_outputs = rows.shape[0], targets.shape[1]
     capacity = 2 * n_samples - 1
-    per_store = max(1, min(len(seeds), _STORE_BYTES // (capacity * (32 + 8 * n_outputs))))
+    per_store = max(1, min(len(seeds),
+                           _STORE_BYTES // (capacity * NodeStore.node_bytes(n_outputs))))
     store = None
     leaves = np.empty((len(seeds), n_samples), np.int32)
     grown = []

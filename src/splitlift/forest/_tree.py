@@ -193,6 +193,12 @@ class NodeStore:
         self.value = np.empty((n_nodes, n_outputs))
         self.used = 0
 
+    @staticmethod
+    def node_bytes(n_outputs: int) -> int:
+        """Bytes one node takes in a store (and in the tree that views it): routing
+        record, parent (int32), split time (float64), count (int32) and value."""
+        return _compiled.ROUTING_RECORD.itemsize + 4 + 8 + 4 + 8 * n_outputs
+
     @property
     def free(self) -> int:
         """Entries not yet taken."""
