@@ -524,6 +524,10 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
         totals[leaf] += weights[point]
     for node in range(n_nodes - 1, 0, -1):  # children have larger ids than their parent
         totals[parent[node]] += totals[node]
+    common_weight = weights[0]
+    weights_equal = True
+    for point in range(1, weights.size):
+        weights_equal &= weights[point] == common_weight
     # node serves grid[first:stop]; its first is where its parent's run stopped
     stops = np.empty(n_nodes, np.int64)
     for node in range(n_nodes):
@@ -539,11 +543,18 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
             continue
         source = holder[node]
         weight_total = totals[source]
+        # equal weights (no sample weights given): one reciprocal per node, the value the
+        # loop would compute for every point
+        reciprocal = 0.0
+        if weights_equal:
+            reciprocal = 1.0 / (weight_total - common_weight)
         for k in range(n_outputs):
             numerator = value[source, k] * weight_total
             for position in range(start[node], start[node] + counts[node]):
-                prediction = ((numerator - member_weights[position] * member_targets[k, position])
-                              * (1.0 / (weight_total - member_weights[position])))
+                weight = member_weights[position]
+                if not weights_equal:
+                    reciprocal = 1.0 / (weight_total - weight)
+                prediction = (numerator - weight * member_targets[k, position]) * reciprocal
                 total[k, first, members[position]] += prediction
                 if stop < n_grid:  # (the same every turn: the compiler hoists it)
                     total[k, stop, members[position]] -= prediction
