@@ -18,6 +18,9 @@ from numba import njit
 # direction at once (m × count reads); larger cells keep a stale box and tighten
 # it one direction at a time, only when a proposed cut misses their points.
 EXACT_EXTENT_BELOW = 16
+# A cell whose lifted values fit in this many bytes is grown from a compact copy
+# of its points, so the passes over its columns stay in the core's cache.
+LOCAL_CELL_BYTES = 1 << 18
 # Uniforms drawn per call of numba's generator (a quarter of the cost of one call per draw).
 _UNIFORMS_PER_REFILL = 512
 
@@ -71,25 +74,25 @@ def _partition(columns, direction, orders, buffer, start, end, cut):
 
 
 @njit(cache=True, nogil=True)
-def grow_from_data(columns, lifetime, seed, exponent, routing, parent, split_time,
+def grow_from_data(rows, columns, lifetime, seed, exponent, routing, parent, split_time,
                    leaf_of_point):
     """Grow one Mondrian tree whose cells use the extent of their training points.
 
     Parameters
     ----------
+    rows : ndarray of shape (n, m), C order
+        Lifted training points.
     columns : ndarray of shape (m, n), C order
-        Lifted training points, one lifted direction per row. Points listed
-        in a locality order (near points at near indices) keep each cell's
-        values close in memory.
+        The same values, one lifted direction per row (``rows.T`` copied).
     lifetime : float
-        Lifetime in the units of ``columns``; ``inf`` grows until every leaf
+        Lifetime in the units of ``rows``; ``inf`` grows until every leaf
         holds one distinct point.
     seed : int
         Seeds the random stream of the thread that grows the tree, so the
         tree depends on the seed alone.
     exponent : int
         The offsets are recorded multiplied by ``2**exponent``: in the units
-        of the lifted data when ``columns`` hold them divided by that power.
+        of the lifted data when ``rows`` hold them divided by that power.
     routing : ndarray of ROUTING_RECORD, shape (at least 2 n - 1,)
     parent : ndarray of int32, shape (at least 2 n - 1,)
     split_time : ndarray of float, shape (at least 2 n - 1,)
@@ -123,7 +126,9 @@ def grow_from_data(columns, lifetime, seed, exponent, routing, parent, split_tim
     exactly instead, which is cheaper than waiting for misses.
 
     Growth runs depth first. The box lives in one array with an undo log,
-    so a child costs two logged writes instead of a copy.
+    so a child costs two logged writes instead of a copy. Cells whose
+    points fit in ``LOCAL_CELL_BYTES`` are set aside and grown afterwards
+    from a compact copy of their points, so their passes stay in the cache.
     """
     m, n = columns.shape
     # inside compiled code np.random is numba's own per-thread stream, not numpy's global
@@ -145,23 +150,33 @@ def grow_from_data(columns, lifetime, seed, exponent, routing, parent, split_tim
             high = max(high, columns[k, i])
         box[k], box[m + k] = low, high
 
+    # the root's subtree grows on the whole data until its cells are small enough to be
+    # set aside; each of those then grows from a compact copy of its points
+    local_limit = max(2, LOCAL_CELL_BYTES // (8 * m))
     orders = np.empty((2, n), np.uint32)
     orders[0] = np.arange(n)
-    stack_index = np.empty((n + 1, 6), np.int64)
-    stack_index[0] = (0, 0, n, 0, -1, 0)
-    stack_value = np.empty((n + 1, 3))
-    stack_value[0] = (0.0, 0.0, 0.0)
-    log_position = np.empty(16 * m + 16, np.int32)
-    log_value = np.empty(16 * m + 16)
-    state = np.array([1, 0, 1])  # stack depth, log length, nodes
-    # growing the log inside the loop would cost reference counting on every step, so
-    # the loop stops when it is full and resumes after it has grown
-    while _grow_cells(columns, orders, box, lifetime, exponent, routing, parent, split_time,
-                      leaf_of_point, stack_index, stack_value, log_position, log_value, state,
-                      uniforms, next_uniform):
-        log_position = _doubled(log_position)
-        log_value = _doubled(log_value)
-    return state[2]
+    n_nodes, set_aside, n_set_aside = _grow_subtree(
+        rows, columns, orders, np.arange(n).astype(np.int32), 0, 0.0, box, lifetime,
+        local_limit, exponent, routing, parent, split_time, leaf_of_point, 1, uniforms,
+        next_uniform)
+    for item in range(n_set_aside):
+        start, end = int(set_aside[item, 1]), int(set_aside[item, 2])
+        points = orders[int(set_aside[item, 3]), start:end].astype(np.int32)
+        count = points.size
+        # whole points are copied (contiguous), then transposed inside the cache
+        local_rows = np.empty((count, m))
+        for i in range(count):
+            point = points[i]
+            for k in range(m):
+                local_rows[i, k] = rows[point, k]
+        local_orders = np.empty((2, count), np.uint32)
+        local_orders[0] = np.arange(count)
+        box[:] = set_aside[item, 5:]
+        n_nodes = _grow_subtree(
+            local_rows, np.ascontiguousarray(local_rows.T), local_orders, points,
+            int(set_aside[item, 0]), set_aside[item, 4], box, lifetime, 0, exponent, routing,
+            parent, split_time, leaf_of_point, n_nodes, uniforms, next_uniform)[0]
+    return n_nodes
 
 
 @njit(cache=True, nogil=True, inline="always")
@@ -204,27 +219,69 @@ def _uniform(uniforms, next_uniform):
     return uniforms[next_uniform], next_uniform + 1
 
 
-@njit(cache=True, nogil=True)
-def _grow_cells(columns, orders, box, lifetime, exponent, routing, parent, split_time,
-                leaf_of_point, stack_index, stack_value, log_position, log_value, state,
-                uniforms, next_uniform):
-    """The depth-first loop of :func:`grow_from_data`; saves ``state`` when it stops.
+# what stopped _grow_cells: the subtree is done, or an array needs more room
+_DONE, _LOG_FULL, _SET_ASIDE_FULL = 0, 1, 2
 
-    Returns True when it stopped because the undo log needs more room, False
-    when the tree is grown. A cell is a range of positions in one row of
-    ``orders``; its split writes the children's ranges into the other row,
-    so nothing is copied back. A pending cell is ``stack_index`` = (node,
-    start, end, log mark, tightened direction, row of orders) and
-    ``stack_value`` = (birth, low, high): the side along which its box is
-    tighter than its parent's final box. Random numbers come from
-    ``uniforms``, whose next unused entry is ``uniforms[next_uniform[0]]``.
+
+@njit(cache=True, nogil=True)
+def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifetime,
+                  set_aside_at, exponent, routing, parent, split_time, leaf_of_point,
+                  n_nodes, uniforms, next_uniform):
+    """Grow the subtree of cell ``root``, which holds all of ``orders[0]``, depth first.
+
+    ``columns[:, i]`` are the lifted values of training point
+    ``point_ids[i]``; ``box`` holds the root's box on entry. Cells of at
+    most ``set_aside_at`` points (other than the root) are not grown but
+    returned as rows ``(node, start, end, row of orders, birth, box...)``.
+    Cuts are recorded with their offsets multiplied by ``2**exponent``.
+    Random numbers come from ``uniforms``, whose next unused entry is
+    ``uniforms[next_uniform[0]]``. Returns the new node count, those rows and their number.
     """
     m = columns.shape[0]
-    depth, log_length, n_nodes = state[0], state[1], state[2]
+    size = orders.shape[1] + 1
+    stack_index = np.empty((size, 6), np.int64)
+    stack_index[0] = (root, 0, orders.shape[1], 0, -1, 0)
+    stack_value = np.empty((size, 3))
+    stack_value[0] = (root_birth, 0.0, 0.0)
+    log_position = np.empty(16 * m + 16, np.int32)
+    log_value = np.empty(16 * m + 16)
+    set_aside = np.empty((16, 5 + 2 * m))
+    state = np.array([1, 0, n_nodes, 0])  # stack depth, log length, nodes, cells set aside
+    # growing an array inside the loop would cost reference counting on every step,
+    # so the loop stops when one is full and resumes after it has grown
+    while True:
+        status = _grow_cells(rows, columns, orders, point_ids, root, box, lifetime,
+                             set_aside_at, exponent, routing, parent, split_time,
+                             leaf_of_point, stack_index, stack_value, log_position,
+                             log_value, set_aside, state, uniforms, next_uniform)
+        if status == _DONE:
+            return state[2], set_aside, state[3]
+        if status == _LOG_FULL:
+            log_position = _doubled(log_position)
+            log_value = _doubled(log_value)
+        else:
+            set_aside = _doubled(set_aside)
+
+
+@njit(cache=True, nogil=True)
+def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside_at,
+                exponent, routing, parent, split_time, leaf_of_point, stack_index,
+                stack_value, log_position, log_value, set_aside, state, uniforms,
+                next_uniform):
+    """The depth-first loop of :func:`_grow_subtree`; returns a status, saves ``state``.
+
+    A cell is a range of positions in one row of ``orders``; its split writes
+    the children's ranges into the other row, so nothing is copied back. A
+    pending cell is ``stack_index`` = (node, start, end, log mark, tightened
+    direction, row of orders) and ``stack_value`` = (birth, low, high): the
+    side along which its box is tighter than its parent's final box.
+    """
+    m = columns.shape[0]
+    depth, log_length, n_nodes, n_set_aside = state[0], state[1], state[2], state[3]
     drawn = next_uniform[0]
     widths = np.empty(m)
     lows = np.empty(m)
-    log_full = False
+    status = _DONE
     while depth > 0:
         depth -= 1
         node, start, end = stack_index[depth, 0], stack_index[depth, 1], stack_index[depth, 2]
@@ -240,7 +297,7 @@ def _grow_cells(columns, orders, box, lifetime, exponent, routing, parent, split
                 log_length -= 1
                 box[log_position[log_length]] = log_value[log_length]
             if log_length + 2 * m + 2 > log_position.size:
-                log_full = True
+                status = _LOG_FULL
                 depth += 1
                 break
             if tightened >= 0:
@@ -248,6 +305,21 @@ def _grow_cells(columns, orders, box, lifetime, exponent, routing, parent, split
                                          log_length)
                 log_length = _set_logged(box, m + tightened, tight_high, log_position,
                                          log_value, log_length)
+            if count <= set_aside_at and node != root:
+                if n_set_aside == set_aside.shape[0]:
+                    status = _SET_ASIDE_FULL
+                    depth += 1
+                    break
+                # (element by element: assigning a tuple allocates in compiled code)
+                set_aside[n_set_aside, 0] = node
+                set_aside[n_set_aside, 1] = start
+                set_aside[n_set_aside, 2] = end
+                set_aside[n_set_aside, 3] = buffer
+                set_aside[n_set_aside, 4] = clock
+                for k in range(2 * m):
+                    set_aside[n_set_aside, 5 + k] = box[k]
+                n_set_aside += 1
+                continue
             # the box's widths, which the misses below may tighten; the rate is summed
             # once per cell, and a miss changes one term
             rate = 0.0
@@ -258,21 +330,21 @@ def _grow_cells(columns, orders, box, lifetime, exponent, routing, parent, split
         else:
             # a few points: their exact widths cost less than waiting for misses (four
             # directions at a time, in registers: four independent chains of comparisons
-            # over the points, whose values stay in the L1 cache; the rest one at a time)
+            # over the points' rows, which stay in the L1 cache; the rest one at a time)
             first_point = orders[buffer, start]
             rate = 0.0
             k = 0
             while k + 4 <= m:
-                l0 = h0 = columns[k, first_point]
-                l1 = h1 = columns[k + 1, first_point]
-                l2 = h2 = columns[k + 2, first_point]
-                l3 = h3 = columns[k + 3, first_point]
+                l0 = h0 = rows[first_point, k]
+                l1 = h1 = rows[first_point, k + 1]
+                l2 = h2 = rows[first_point, k + 2]
+                l3 = h3 = rows[first_point, k + 3]
                 for position in range(start + 1, end):
                     point = orders[buffer, position]
-                    v0 = columns[k, point]
-                    v1 = columns[k + 1, point]
-                    v2 = columns[k + 2, point]
-                    v3 = columns[k + 3, point]
+                    v0 = rows[point, k]
+                    v1 = rows[point, k + 1]
+                    v2 = rows[point, k + 2]
+                    v3 = rows[point, k + 3]
                     l0 = v0 if v0 < l0 else l0
                     l1 = v1 if v1 < l1 else l1
                     l2 = v2 if v2 < l2 else l2
@@ -287,9 +359,9 @@ def _grow_cells(columns, orders, box, lifetime, exponent, routing, parent, split
                 rate += (w0 + w1) + (w2 + w3)
                 k += 4
             while k < m:
-                lowest = highest = columns[k, first_point]
+                lowest = highest = rows[first_point, k]
                 for position in range(start + 1, end):
-                    value = columns[k, orders[buffer, position]]
+                    value = rows[orders[buffer, position], k]
                     lowest = min(lowest, value)
                     highest = max(highest, value)
                 lows[k] = lowest
@@ -350,7 +422,7 @@ def _grow_cells(columns, orders, box, lifetime, exponent, routing, parent, split
                 parent[child] = node
                 _make_leaf(routing, split_time, child)
                 if stop - first == 1:  # one point: a leaf at once
-                    leaf_of_point[orders[other, first]] = child
+                    leaf_of_point[point_ids[orders[other, first]]] = child
                     continue
                 stack_index[depth, 0] = child
                 stack_index[depth, 1] = first
@@ -367,10 +439,10 @@ def _grow_cells(columns, orders, box, lifetime, exponent, routing, parent, split
             break
         if not was_cut:
             for position in range(start, end):
-                leaf_of_point[orders[buffer, position]] = node
-    state[0], state[1], state[2] = depth, log_length, n_nodes
+                leaf_of_point[point_ids[orders[buffer, position]]] = node
+    state[0], state[1], state[2], state[3] = depth, log_length, n_nodes, n_set_aside
     next_uniform[0] = drawn
-    return log_full
+    return status
 
 
 @njit(cache=True, nogil=True)

@@ -169,18 +169,19 @@ class _StitForest(BaseEstimator):
         exponent = binary_exponent(float(np.max(np.abs(lifted))))
         rescaled = times_power_of_two(lifted, -exponent)
         order = _locality_order(rescaled)  # keeps each cell's points close in memory
-        columns = np.ascontiguousarray(rescaled[order].T)
+        rows = np.ascontiguousarray(rescaled[order])
+        columns = np.ascontiguousarray(rows.T)
         targets = np.ascontiguousarray(targets[order])
         weights = np.ascontiguousarray(weights[order])
-        root_rate = float(np.ptp(columns, axis=1).sum())
+        root_rate = float(np.ptp(rows, axis=0).sum())
         tuning = lifetime is None and root_rate > 0 and n_samples > 1
-        grid = lifetime_grid(root_rate, n_samples, columns.shape[0], "data") if tuning else None
+        grid = lifetime_grid(root_rate, n_samples, rows.shape[1], "data") if tuning else None
         if lifetime is None:
             grow_to = np.inf  # the grid ends at inf; without tuning every lifetime is alike
         else:
             grow_to = float(np.ldexp(lifetime, exponent))
-        grown = self._parallel(_grow_data_batch, columns, targets, weights, grow_to, exponent,
-                               seeds)
+        grown = self._parallel(_grow_data_batch, rows, columns, targets, weights, grow_to,
+                               exponent, seeds)
         trees = [tree for tree, _ in grown]
         if not tuning:
             return trees, exponent, None, None
@@ -364,7 +365,7 @@ def _warn_if_out_of_range(lifetime: float, rescaled: float, exponent: int) -> No
 
 
 # ---------------------------------------------------------------- batch workers
-def _grow_data_batch(columns, targets, weights, lifetime, exponent, seeds):
+def _grow_data_batch(rows, columns, targets, weights, lifetime, exponent, seeds):
     """Grown trees (offsets in lifted units, times on the rescaled clock), with leaves.
 
     Trees are packed into shared stores of at most about ``_STORE_BYTES``: a
@@ -373,7 +374,7 @@ def _grow_data_batch(columns, targets, weights, lifetime, exponent, seeds):
     the end on distinct points fill that room; at a finite lifetime they
     need far less, and the room they leave is never touched, so never mapped.
     """
-    n_samples, n_outputs = columns.shape[1], targets.shape[1]
+    n_samples, n_outputs = rows.shape[0], targets.shape[1]
     capacity = 2 * n_samples - 1
     per_store = max(1, min(len(seeds),
                            _STORE_BYTES // (capacity * NodeStore.node_bytes(n_outputs))))
@@ -383,8 +384,8 @@ def _grow_data_batch(columns, targets, weights, lifetime, exponent, seeds):
     for seed, leaf_of_point in zip(seeds, leaves, strict=True):
         if store is None or store.free < capacity:
             store = NodeStore(capacity * per_store, n_outputs)
-        n_nodes = _compiled.grow_from_data(columns, lifetime, seed, exponent, *store.room(),
-                                           leaf_of_point)
+        n_nodes = _compiled.grow_from_data(rows, columns, lifetime, seed, exponent,
+                                           *store.room(), leaf_of_point)
         routing, parent, split_time, counts, value = store.take(n_nodes)
         _compiled.node_values(parent, leaf_of_point, targets, weights, counts, value)
         tree = tree_from_growth(routing, parent, split_time, counts, value, lifetime)
