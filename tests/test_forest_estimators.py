@@ -70,6 +70,31 @@ def test_classifier_probabilities_are_mean_leaf_frequencies():
                                   forest.classes_[probabilities.argmax(axis=1)])
 
 
+@pytest.mark.parametrize("n_points", [1, 7, 8, 9, 203])
+def test_routing_matches_a_walk_down_every_tree(n_points):
+    # Reference: a plain Python walk from the root with the cut rule of StitTree's docstring
+    # (z[direction] <= offset goes left). The compiled router moves eight points at a time
+    # and hands a slot to the next point when one arrives at its leaf, so any number of
+    # points, with leaves at uneven depths, must reach the same leaves.
+    rng = np.random.default_rng(15)
+    X = rng.normal(size=(300, 3))
+    forest = StitForestRegressor(lifetime=np.inf, n_trees=3, random_state=16)
+    forest.fit(X, rng.normal(size=300))
+    X_new = 1.5 * rng.normal(size=(n_points, 3))
+    lifted = forest._lifted(X_new)
+    expected = np.empty((n_points, forest.n_trees), int)
+    for k, tree in enumerate(forest.trees_):
+        for i, z in enumerate(lifted):
+            node = 0
+            while tree.direction[node] >= 0:
+                goes_left = z[tree.direction[node]] <= tree.offset[node]
+                node = tree.left[node] if goes_left else tree.right[node]
+            expected[i, k] = node
+    np.testing.assert_array_equal(forest.apply(X_new), expected)
+    values = np.array([tree.value[expected[:, k], 0] for k, tree in enumerate(forest.trees_)])
+    np.testing.assert_allclose(forest.predict(X_new), values.mean(axis=0), rtol=1e-12)
+
+
 def test_apply_shape_and_leaf_counts():
     rng = np.random.default_rng(3)
     X, y, _ = _oblique_data(120, rng)
