@@ -19,24 +19,35 @@ from ._timing import best_time, best_timed, table
 N_INPUTS = 10
 
 
-def ridge_problem(n_train: int, n_test: int, width: int, seed: int = 0):
-    """A simulated two-index ridge function and a lift of ``width`` directions around it.
+def two_index_ridge(n_train: int, n_test: int, n_inputs: int, seed: int = 0):
+    """A simulated two-index ridge function of ``n_inputs`` standard normal inputs.
 
-    ``y = sin(2 b1·x) + (b2·x)^2 / 2 + N(0, 0.1^2)`` with x standard normal
-    in 10 dimensions; the lift puts ``width - 8`` directions in ``span(b1,
-    b2)`` and weight 0.05 on the 8 complement directions.
+    ``y = sin(2 b1·x) + (b2·x)^2 / 2 + N(0, 0.1^2)`` with ``b1, b2`` an
+    orthonormal pair drawn at random. Returns the training and test inputs
+    and responses, and the pair as the columns of an (n_inputs, 2) basis.
     """
     generator = np.random.default_rng(seed)
-    basis = np.linalg.qr(generator.standard_normal((N_INPUTS, 2)))[0]
-    X = generator.standard_normal((n_train + n_test, N_INPUTS))
+    basis = np.linalg.qr(generator.standard_normal((n_inputs, 2)))[0]
+    X = generator.standard_normal((n_train + n_test, n_inputs))
     index = X @ basis
     y = np.sin(2 * index[:, 0]) + index[:, 1] ** 2 / 2 + 0.1 * generator.standard_normal(len(X))
+    return X[:n_train], y[:n_train], X[n_train:], y[n_train:], basis
+
+
+def ridge_problem(n_train: int, n_test: int, width: int, seed: int = 0):
+    """The two-index ridge function in 10 inputs and a lift of ``width`` directions around it.
+
+    The lift puts ``width - 8`` directions in ``span(b1, b2)`` and weight
+    0.05 on the 8 complement directions (:func:`two_index_ridge`).
+    """
+    X, y, X_test, y_test, basis = two_index_ridge(n_train, n_test, N_INPUTS, seed)
     lift = LiftMatrix.from_subspace(basis, complement_weight=0.05, n_in_subspace=width - 8)
-    return X[:n_train], y[:n_train], X[n_train:], y[n_train:], lift
+    return X, y, X_test, y_test, lift
 
 
 def benchmark_forest(n_samples: int = 20_000, width: int = 10, n_trees: int = 100,
-                     n_jobs: int | None = None, n_test: int = 5_000, repeats: int = 2) -> dict:
+                     n_jobs: int | None = None, n_test: int = 5_000, repeats: int = 2,
+                     raw: bool = False) -> dict:
     """Fit and predict times of a fully grown STIT forest and of the reference forest.
 
     Both forests grow ``n_trees`` trees to full depth on the same lifted
@@ -44,9 +55,12 @@ def benchmark_forest(n_samples: int = 20_000, width: int = 10, n_trees: int = 10
     ``lifetime=np.inf`` and the lift (it lifts X itself, inside the timing),
     and scikit-learn's ``ExtraTreesRegressor(max_features=1)`` on the lifted
     columns ``lift.apply(X)`` computed beforehand; it also cuts one random
-    column at a random threshold per node. Timings are the best wall-clock
-    seconds of ``repeats`` runs each, taken one after the other in this
-    process (one run varied by up to half from run to run).
+    column at a random threshold per node. With ``raw`` both grow instead on
+    ``width`` raw inputs of :func:`two_index_ridge`, with no lift: columns
+    that fill all their dimensions, unlike lifted columns around a
+    two-dimensional subspace. Timings are the best wall-clock seconds of
+    ``repeats`` runs each, taken one after the other in this process (one
+    run varied by up to half from run to run).
 
     Returns
     -------
@@ -54,8 +68,12 @@ def benchmark_forest(n_samples: int = 20_000, width: int = 10, n_trees: int = 10
         Seconds, ratios (STIT over reference), test mean squared errors,
         mean leaves and node storage per tree of both forests.
     """
-    X, y, X_test, y_test, lift = ridge_problem(n_samples, n_test, width)
-    lifted, lifted_test = lift.apply(X), lift.apply(X_test)
+    if raw:
+        X, y, X_test, y_test, _ = two_index_ridge(n_samples, n_test, width)
+        lift, lifted, lifted_test = None, X, X_test
+    else:
+        X, y, X_test, y_test, lift = ridge_problem(n_samples, n_test, width)
+        lifted, lifted_test = lift.apply(X), lift.apply(X_test)
     stit = StitForestRegressor(lifetime=np.inf, n_trees=n_trees, lift=lift, random_state=0,
                                n_jobs=n_jobs)
     reference = ExtraTreesRegressor(n_estimators=n_trees, max_features=1, random_state=0,
@@ -71,7 +89,8 @@ def benchmark_forest(n_samples: int = 20_000, width: int = 10, n_trees: int = 10
     ])
     stit_bytes = np.mean([tree.nbytes for tree in stit.trees_])
     return {
-        "n_samples": n_samples, "width": width, "n_trees": n_trees, "n_jobs": n_jobs or 1,
+        "n_samples": n_samples, "width": width, "inputs": "raw" if raw else "lifted",
+        "n_trees": n_trees, "n_jobs": n_jobs or 1,
         "stit_fit_seconds": stit_fit, "reference_fit_seconds": reference_fit,
         "fit_ratio": stit_fit / reference_fit,
         "stit_predict_seconds": stit_predict, "reference_predict_seconds": reference_predict,
@@ -162,11 +181,15 @@ def run_forest_speed(quick: bool, out) -> dict:
     benchmark_auto_lifetime(1_000, 10, 2)
     rows = [benchmark_forest(n, width, n_trees, n_jobs)
             for n in sizes for width in widths for n_jobs in (1, 2)]
+    # and on columns that fill all their dimensions, where cells keep their points apart
+    rows.append(benchmark_forest(sizes[-1], widths[-1], n_trees, 1, raw=True))
     out.write(f"\nSTIT forest (lift of the given width, fully grown) vs "
               f"ExtraTreesRegressor(max_features=1) on the same lifted columns, "
-              f"{n_trees} trees; seconds, ratios STIT / ET\n")
+              f"{n_trees} trees; seconds, ratios STIT / ET; the raw row grows both on that "
+              f"many raw normal inputs, no lift\n")
     out.write(table(rows, [
-        ("n_samples", "n", "d"), ("width", "width", "d"), ("n_jobs", "jobs", "d"),
+        ("n_samples", "n", "d"), ("width", "width", "d"), ("inputs", "inputs", "s"),
+        ("n_jobs", "jobs", "d"),
         ("stit_fit_seconds", "STIT fit", ".2f"), ("reference_fit_seconds", "ET fit", ".2f"),
         ("fit_ratio", "fit ratio", ".2f"), ("stit_predict_seconds", "STIT pred", ".2f"),
         ("reference_predict_seconds", "ET pred", ".2f"), ("predict_ratio", "pred ratio", ".2f"),
