@@ -500,8 +500,8 @@ def apply_tree(rows, routing, leaves):
 
     A leaf routes to itself, so a point has arrived when its step leaves it
     in place; its slot then takes the next point, and no slot idles while
-    the deepest of a fixed group descends (the leaves of a group of eight
-    lie 1.3 times deeper at most than on average).
+    the deepest of a fixed group descends (in fully grown trees the deepest
+    leaf of a group of eight lies about 1.3 times deeper than the average).
     """
     n = rows.shape[0]
     point = np.empty(_SLOTS, np.int64)
