@@ -180,12 +180,18 @@ def grow_from_data(rows, columns, lifetime, seed, exponent, routing, parent, spl
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _make_leaf(routing, split_time, node):
-    """Mark ``node`` a leaf: it routes to itself and is never cut."""
+def _route_to_itself(routing, node):
+    """Make ``node``'s routing record a leaf's: it sends every point back to ``node``."""
     record = routing[node]
     record.offset = np.inf
     record.left = node
     record.direction = 0
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _make_leaf(routing, split_time, node):
+    """Mark ``node`` a leaf: it routes to itself and is never cut."""
+    _route_to_itself(routing, node)
     split_time[node] = np.inf
 
 
@@ -195,9 +201,7 @@ def routing_records(direction, offset, left, exponent):
     records = np.empty(direction.size, ROUTING_RECORD)
     for node in range(direction.size):
         if direction[node] < 0:
-            records[node].offset = np.inf
-            records[node].left = node
-            records[node].direction = 0
+            _route_to_itself(records, node)
         else:
             records[node].offset = np.ldexp(offset[node], exponent)
             records[node].left = left[node]
@@ -655,46 +659,39 @@ def running_sum_over_lifetimes(differences):
 
 
 @njit(cache=True, nogil=True)
-def n_born_by(parent, split_time, lifetime):
-    """Nodes of a tree born at or before ``lifetime``: the size of the pruned tree."""
-    kept = 1
-    for node in range(1, parent.size):
-        kept += split_time[parent[node]] <= lifetime
-    return kept
-
-
-@njit(cache=True, nogil=True)
-def prune_tree(routing, parent, split_time, counts, value, lifetime, pruned, pruned_parent,
-               pruned_split, pruned_counts, pruned_value):
-    """The tree at a smaller lifetime: cells born later dropped, later cuts made leaves.
-
-    Writes the pruned tree's nodes to the ``pruned*`` arrays, whose length
-    is :func:`n_born_by`.
-    """
-    n_nodes = parent.size
-    new_id = np.full(n_nodes, -1, np.int64)
+def pruned_ids(parent, split_time, lifetime):
+    """Ids in the tree at a smaller lifetime (-1: born later, dropped), and their number."""
+    new_id = np.full(parent.size, -1, np.int64)
     kept = 0
-    for node in range(n_nodes):  # parents first, so a kept node's parent is known
+    for node in range(parent.size):  # parents first, so a kept node's parent is known
         birth = 0.0 if node == 0 else split_time[parent[node]]
         if birth <= lifetime:
             new_id[node] = kept
             kept += 1
+    return new_id, kept
+
+
+@njit(cache=True, nogil=True)
+def prune_tree(routing, parent, split_time, counts, value, lifetime, new_id, pruned,
+               pruned_parent, pruned_split, pruned_counts, pruned_value):
+    """The tree at a smaller lifetime: cells born later dropped, later cuts made leaves.
+
+    ``new_id`` comes from :func:`pruned_ids`; writes the pruned tree's nodes
+    to the ``pruned*`` arrays, as long as the number of nodes it keeps.
+    """
     n_outputs = value.shape[1]
-    for node in range(n_nodes):  # field by field: whole-record and row copies cost more
+    for node in range(parent.size):  # field by field: whole-record and row copies cost more
         target = new_id[node]
         if target < 0:
             continue
-        record = pruned[target]
         if routing[node].left != node and split_time[node] <= lifetime:
+            record = pruned[target]
             record.offset = routing[node].offset
             record.left = new_id[routing[node].left]
             record.direction = routing[node].direction
             pruned_split[target] = split_time[node]
         else:
-            record.offset = np.inf
-            record.left = target
-            record.direction = 0
-            pruned_split[target] = np.inf
+            _make_leaf(pruned, pruned_split, target)
         pruned_parent[target] = -1 if node == 0 else new_id[parent[node]]
         pruned_counts[target] = counts[node]
         for k in range(n_outputs):

@@ -240,14 +240,15 @@ def prune_all(trees: list[StitTree], lifetime: float, n_threads: int = 1) -> lis
     small allocations that reuse memory the process has freed).
     """
     lifetime = float(lifetime)
-    sizes = [_compiled.n_born_by(tree.parent, tree.split_time, lifetime) for tree in trees]
-    parts = [NodeStore(size, trees[0].value.shape[1]).take(size) for size in sizes]
 
-    def pruned(index: int) -> StitTree:
-        tree, (routing, parent, split_time, counts, value) = trees[index], parts[index]
+    def pruned(tree: StitTree) -> StitTree:
+        new_id, kept = _compiled.pruned_ids(tree.parent, tree.split_time, lifetime)
+        routing, parent, split_time, counts, value = NodeStore(
+            kept, tree.value.shape[1]).take(kept)
         _compiled.prune_tree(tree.routing, tree.parent, tree.split_time, tree.n_node_samples,
-                             tree.value, lifetime, routing, parent, split_time, counts, value)
+                             tree.value, lifetime, new_id, routing, parent, split_time,
+                             counts, value)
         return StitTree(routing=routing, parent=parent, split_time=split_time,
                         n_node_samples=counts, value=value, lifetime=lifetime)
 
-    return threaded_map(pruned, range(len(trees)), n_threads)
+    return threaded_map(pruned, trees, n_threads)
