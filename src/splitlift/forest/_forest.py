@@ -173,15 +173,17 @@ class _StitForest(BaseEstimator):
         columns = np.ascontiguousarray(rows.T)
         targets = np.ascontiguousarray(targets[order])
         weights = np.ascontiguousarray(weights[order])
-        root_rate = float(np.ptp(rows, axis=0).sum())
+        lowest, highest = rows.min(axis=0), rows.max(axis=0)
+        root_box = np.concatenate([lowest, highest])  # the same root cell for every tree
+        root_rate = float((highest - lowest).sum())
         tuning = lifetime is None and root_rate > 0 and n_samples > 1
         grid = lifetime_grid(root_rate, n_samples, rows.shape[1], "data") if tuning else None
         if lifetime is None:
             grow_to = np.inf  # the grid ends at inf; without tuning every lifetime is alike
         else:
             grow_to = float(np.ldexp(lifetime, exponent))
-        grown = self._parallel(_grow_data_batch, rows, columns, targets, weights, grow_to,
-                               exponent, seeds)
+        grown = self._parallel(_grow_data_batch, rows, columns, root_box, targets, weights,
+                               grow_to, exponent, seeds)
         trees = [tree for tree, _ in grown]
         if not tuning:
             return trees, exponent, None, None
@@ -365,7 +367,7 @@ def _warn_if_out_of_range(lifetime: float, rescaled: float, exponent: int) -> No
 
 
 # ---------------------------------------------------------------- batch workers
-def _grow_data_batch(rows, columns, targets, weights, lifetime, exponent, seeds):
+def _grow_data_batch(rows, columns, root_box, targets, weights, lifetime, exponent, seeds):
     """Grown trees (offsets in lifted units, times on the rescaled clock), with leaves.
 
     Trees are packed into shared stores of at most about ``_STORE_BYTES``: a
@@ -384,7 +386,7 @@ def _grow_data_batch(rows, columns, targets, weights, lifetime, exponent, seeds)
     for seed, leaf_of_point in zip(seeds, leaves, strict=True):
         if store is None or store.free < capacity:
             store = NodeStore(capacity * per_store, n_outputs)
-        n_nodes = _compiled.grow_from_data(rows, columns, lifetime, seed, exponent,
+        n_nodes = _compiled.grow_from_data(rows, columns, root_box, lifetime, seed, exponent,
                                            *store.room(), leaf_of_point)
         routing, parent, split_time, counts, value = store.take(n_nodes)
         _compiled.node_values(parent, leaf_of_point, targets, weights, counts, value)
