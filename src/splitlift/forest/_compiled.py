@@ -22,12 +22,10 @@ from numba.extending import intrinsic
 # it one direction at a time, only when a proposed cut misses their points.
 EXACT_EXTENT_BELOW = 16
 # A cell whose lifted values fit in this many bytes is grown from a compact copy
-# of its points, so the passes over its columns stay in the core's cache.
-LOCAL_CELL_BYTES = 1 << 18
+# of its rows, so the passes over it stay in the core's cache.
+LOCAL_CELL_BYTES = 1 << 19
 # Uniforms drawn per call of numba's generator (a quarter of the cost of one call per draw).
 _UNIFORMS_PER_REFILL = 512
-# Points per block of the transposition of a cell set aside: their rows stay in the L1 cache.
-_TRANSPOSE_BLOCK = 32
 # The copy of a cell set aside asks for the values of the point this many places ahead.
 _PREFETCH_AHEAD = 8
 
@@ -54,8 +52,13 @@ def _set_logged(box, position, value, log_position, log_value, log_length):
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _partition(columns, direction, orders, buffer, start, end, cut):
+def _partition(values, point_stride, column_stride, direction, orders, buffer, start, end,
+               cut):
     """One branch-free pass over the cell ``orders[buffer, start:end]`` along a column.
+
+    The value of point i along direction k is ``values[k * column_stride +
+    i * point_stride]``: ``values`` is either the flat columns (strides 1
+    and n) or the flat rows (strides m and 1).
 
     Writes the points with ``value <= cut`` to the front and the others to
     the back of the same range in the other row of ``orders``; returns the
@@ -64,12 +67,12 @@ def _partition(columns, direction, orders, buffer, start, end, cut):
     hottest loop.
     """
     source, target = np.uint64(buffer), np.uint64(1 - buffer)
-    column = np.uint64(direction)
+    base, step = np.uint64(direction) * np.uint64(column_stride), np.uint64(point_stride)
     front, back = np.uint64(start), np.uint64(end - 1)
     lowest, highest = np.inf, -np.inf
     for position in range(np.uint64(start), np.uint64(end)):
         point = orders[source, position]
-        value = columns[column, point]
+        value = values[base + np.uint64(point) * step]
         lowest = min(lowest, value)
         highest = max(highest, value)
         goes_left = value <= cut
@@ -138,7 +141,9 @@ def grow_from_data(rows, columns, root_box, lifetime, seed, exponent, routing, p
     Growth runs depth first. The box lives in one array with an undo log,
     so a child costs two logged writes instead of a copy. Cells whose
     points fit in ``LOCAL_CELL_BYTES`` are set aside and grown afterwards
-    from a compact copy of their points, so their passes stay in the cache.
+    from a compact copy of their rows, so their passes stay in the cache.
+    Passes over the whole data read its columns; passes over a copy read
+    its rows with a stride, which costs less than transposing each copy.
     """
     m, n = columns.shape
     # inside compiled code np.random is numba's own per-thread stream, not numpy's global
@@ -160,12 +165,12 @@ def grow_from_data(rows, columns, root_box, lifetime, seed, exponent, routing, p
     orders = np.empty((2, n), np.uint32)
     orders[0] = np.arange(n)
     n_nodes, set_aside, n_set_aside = _grow_subtree(
-        rows, columns, orders, np.arange(n).astype(np.int32), 0, 0.0, box, lifetime,
+        rows, columns.reshape(columns.size), 1, n, orders, np.arange(n).astype(np.int32), 0,
+        0.0, box, lifetime,
         local_limit, exponent, routing, parent, split_time, leaf_of_point, 1, uniforms,
         next_uniform)
     # room for the largest cell set aside, shared by all of them
     row_store = np.empty(local_limit * m)
-    column_store = np.empty(local_limit * m)
     order_store = np.empty(2 * local_limit, np.uint32)
     point_store = np.empty(local_limit, np.int32)
     for item in range(n_set_aside):
@@ -175,24 +180,22 @@ def grow_from_data(rows, columns, root_box, lifetime, seed, exponent, routing, p
         buffer = int(set_aside[item, 3])
         for i in range(count):
             points[i] = orders[buffer, start + i]
-        local_rows, local_columns, local_orders = _local_copy(rows, points, row_store,
-                                                              column_store, order_store)
+        local_rows, local_orders = _local_copy(rows, points, row_store, order_store)
         box[:] = set_aside[item, 5:]
         n_nodes = _grow_subtree(
-            local_rows, local_columns, local_orders, points,
+            local_rows, local_rows.reshape(local_rows.size), m, 1, local_orders, points,
             int(set_aside[item, 0]), set_aside[item, 4], box, lifetime, 0, exponent, routing,
             parent, split_time, leaf_of_point, n_nodes, uniforms, next_uniform)[0]
     return n_nodes
 
 
 @njit(cache=True, nogil=True)
-def _local_copy(rows, points, row_store, column_store, order_store):
-    """Compact copies of the rows of ``points``, in the stores: rows, columns and orders.
+def _local_copy(rows, points, row_store, order_store):
+    """A compact copy of the rows of ``points`` and a first order of them, in the stores.
 
-    Whole rows are copied (contiguous), then transposed in blocks. The rows
-    are read in no predictable order, so the copy asks for each a few points
-    ahead (about a tenth of the time to grow a tree at n = 1e5, m = 30, was
-    spent waiting for them).
+    The rows are read in no predictable order, so the copy asks for each a
+    few points ahead (about a tenth of the time to grow a tree at n = 1e5,
+    m = 30, was spent waiting for them).
     """
     count, m = points.size, rows.shape[1]
     local_rows = row_store[: count * m].reshape((count, m))
@@ -204,11 +207,10 @@ def _local_copy(rows, points, row_store, column_store, order_store):
         point = points[i]
         for k in range(m):
             local_rows[i, k] = rows[point, k]
-    _transpose(row_store, column_store, count, m)
     local_orders = order_store[: 2 * count].reshape((2, count))
     for i in range(count):
         local_orders[0, i] = i
-    return local_rows, column_store[: count * m].reshape((m, count)), local_orders
+    return local_rows, local_orders
 
 
 @intrinsic
@@ -226,22 +228,6 @@ def _prefetch(typingctx, array, index):
                                 int32(0), int32(3), int32(1)])
         return context.get_dummy_value()
     return types.void(array, index), codegen
-
-
-@njit(cache=True, nogil=True)
-def _transpose(row_store, column_store, count, m):
-    """``column_store[k * count + i] = row_store[i * m + k]``, in blocks of points
-    whose rows stay in the L1 cache (unsigned indices: no negative-index checks)."""
-    count, m = np.uint64(count), np.uint64(m)
-    block = np.uint64(_TRANSPOSE_BLOCK)
-    for first in range(np.uint64(0), count, block):
-        last = min(first + block, count)
-        for k in range(m):
-            out = k * count
-            source = first * m + k
-            for i in range(first, last):
-                column_store[out + i] = row_store[source]
-                source += m
 
 
 @njit(cache=True, nogil=True, inline="always")
@@ -293,20 +279,21 @@ _DONE, _LOG_FULL, _SET_ASIDE_FULL = 0, 1, 2
 
 
 @njit(cache=True, nogil=True)
-def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifetime,
-                  set_aside_at, exponent, routing, parent, split_time, leaf_of_point,
-                  n_nodes, uniforms, next_uniform):
+def _grow_subtree(rows, values, point_stride, column_stride, orders, point_ids, root,
+                  root_birth, box, lifetime, set_aside_at, exponent, routing, parent,
+                  split_time, leaf_of_point, n_nodes, uniforms, next_uniform):
     """Grow the subtree of cell ``root``, which holds all of ``orders[0]``, depth first.
 
-    ``columns[:, i]`` are the lifted values of training point
-    ``point_ids[i]``; ``box`` holds the root's box on entry. Cells of at
+    ``rows[i]`` are the lifted values of training point ``point_ids[i]``,
+    and ``values`` the same values flat, laid out as :func:`_partition`
+    reads them; ``box`` holds the root's box on entry. Cells of at
     most ``set_aside_at`` points (other than the root) are not grown but
     returned as rows ``(node, start, end, row of orders, birth, box...)``.
     Cuts are recorded with their offsets multiplied by ``2**exponent``.
     Random numbers come from ``uniforms``, whose next unused entry is
     ``uniforms[next_uniform[0]]``. Returns the new node count, those rows and their number.
     """
-    m = columns.shape[0]
+    m = rows.shape[1]
     size = orders.shape[1] + 1
     stack_index = np.empty((size, 6), np.int64)
     stack_index[0] = (root, 0, orders.shape[1], 0, -1, 0)
@@ -319,10 +306,10 @@ def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifet
     # growing an array inside the loop would cost reference counting on every step,
     # so the loop stops when one is full and resumes after it has grown
     while True:
-        status = _grow_cells(rows, columns, orders, point_ids, root, box, lifetime,
-                             set_aside_at, exponent, routing, parent, split_time,
-                             leaf_of_point, stack_index, stack_value, log_position,
-                             log_value, set_aside, state, uniforms, next_uniform)
+        status = _grow_cells(rows, values, point_stride, column_stride, orders, point_ids,
+                             root, box, lifetime, set_aside_at, exponent, routing, parent,
+                             split_time, leaf_of_point, stack_index, stack_value,
+                             log_position, log_value, set_aside, state, uniforms, next_uniform)
         if status == _DONE:
             return state[2], set_aside, state[3]
         if status == _LOG_FULL:
@@ -333,9 +320,9 @@ def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifet
 
 
 @njit(cache=True, nogil=True)
-def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside_at,
-                exponent, routing, parent, split_time, leaf_of_point, stack_index,
-                stack_value, log_position, log_value, set_aside, state, uniforms,
+def _grow_cells(rows, values, point_stride, column_stride, orders, point_ids, root, box,
+                lifetime, set_aside_at, exponent, routing, parent, split_time, leaf_of_point,
+                stack_index, stack_value, log_position, log_value, set_aside, state, uniforms,
                 next_uniform):
     """The depth-first loop of :func:`_grow_subtree`; returns a status, saves ``state``.
 
@@ -345,7 +332,7 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
     direction, row of orders) and ``stack_value`` = (birth, low, high): the
     side along which its box is tighter than its parent's final box.
     """
-    m = columns.shape[0]
+    m = rows.shape[1]
     depth, log_length, n_nodes, n_set_aside = state[0], state[1], state[2], state[3]
     drawn = next_uniform[0]
     widths = np.empty(m)
@@ -464,8 +451,8 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
             low, width = lows[chosen], widths[chosen]
             cut = low + min(max(target - (total - width), 0.0), width)
 
-            n_left, lowest, highest = _partition(columns, chosen, orders, buffer, start, end,
-                                                 cut)
+            n_left, lowest, highest = _partition(values, point_stride, column_stride, chosen,
+                                                 orders, buffer, start, end, cut)
             if n_left == 0 or n_left == count:
                 if not exact:
                     # the cut misses the points: tighten this direction, the clock runs on
