@@ -85,7 +85,7 @@ def _partition(values, point_stride, column_stride, direction, orders, buffer, s
 
 @njit(cache=True, nogil=True)
 def grow_from_data(rows, columns, root_box, lifetime, seed, exponent, routing, parent,
-                   split_time, leaf_of_point):
+                   split_time, leaf_of_point, workspace):
     """Grow one Mondrian tree whose cells use the extent of their training points.
 
     Parameters
@@ -114,6 +114,8 @@ def grow_from_data(rows, columns, root_box, lifetime, seed, exponent, routing, p
         which the operating system backs with few, large pages.
     leaf_of_point : ndarray of int32, shape (n,)
         Receives the leaf of every point.
+    workspace : tuple of ndarray
+        Working arrays from :func:`growth_workspace`, reused tree after tree.
 
     Returns
     -------
@@ -161,18 +163,13 @@ def grow_from_data(rows, columns, root_box, lifetime, seed, exponent, routing, p
 
     # the root's subtree grows on the whole data until its cells are small enough to be
     # set aside; each of those then grows from a compact copy of its points
-    local_limit = max(2, LOCAL_CELL_BYTES // (8 * m))
-    orders = np.empty((2, n), np.uint32)
-    orders[0] = np.arange(n)
+    orders, point_ids, row_store, order_store, point_store = workspace
+    for i in range(n):
+        orders[0, i] = i
     n_nodes, set_aside, n_set_aside = _grow_subtree(
-        rows, columns.reshape(columns.size), 1, n, orders, np.arange(n).astype(np.int32), 0,
-        0.0, box, lifetime,
-        local_limit, exponent, routing, parent, split_time, leaf_of_point, 1, uniforms,
+        rows, columns.reshape(columns.size), 1, n, orders, point_ids, 0, 0.0, box, lifetime,
+        point_store.size, exponent, routing, parent, split_time, leaf_of_point, 1, uniforms,
         next_uniform)
-    # room for the largest cell set aside, shared by all of them
-    row_store = np.empty(local_limit * m)
-    order_store = np.empty(2 * local_limit, np.uint32)
-    point_store = np.empty(local_limit, np.int32)
     for item in range(n_set_aside):
         start, end = int(set_aside[item, 1]), int(set_aside[item, 2])
         count = end - start
@@ -187,6 +184,25 @@ def grow_from_data(rows, columns, root_box, lifetime, seed, exponent, routing, p
             int(set_aside[item, 0]), set_aside[item, 4], box, lifetime, 0, exponent, routing,
             parent, split_time, leaf_of_point, n_nodes, uniforms, next_uniform)[0]
     return n_nodes
+
+
+def growth_workspace(n: int, m: int) -> tuple[np.ndarray, ...]:
+    """Working arrays of :func:`grow_from_data` for ``n`` points in ``m`` directions.
+
+    Allocated once per batch of trees and reused tree after tree, so that
+    no tree pays for fresh memory (a page fault per page at its first write).
+
+    Returns
+    -------
+    tuple
+        The two rows of cell orders over the data, the points' ids, and room
+        for the largest cell set aside: its rows, its orders and its ids.
+    """
+    # cells of at most this many points are set aside (at least two: a cut needs two points)
+    local_limit = max(2, LOCAL_CELL_BYTES // (8 * m))
+    return (np.empty((2, n), np.uint32), np.arange(n, dtype=np.int32),
+            np.empty(local_limit * m), np.empty(2 * local_limit, np.uint32),
+            np.empty(local_limit, np.int32))
 
 
 @njit(cache=True, nogil=True)
@@ -510,7 +526,7 @@ def _doubled(array):
 
 
 @njit(cache=True, nogil=True)
-def node_values(parent, leaf_of_point, targets, weights, counts, values):
+def node_values(parent, leaf_of_point, targets, weights, counts, values, totals):
     """Training points and weighted mean target of every node.
 
     Computed from the leaf each point ended in; ``weights`` are the sample
@@ -518,13 +534,14 @@ def node_values(parent, leaf_of_point, targets, weights, counts, values):
     mean exactly as unweighted). An empty node takes the value of its
     nearest non-empty ancestor. Writes ``counts`` (n_nodes,) and ``values``
     (n_nodes, n_outputs); the sums become the means in place, so the only
-    scratch array is the weight totals.
+    scratch array is the weight totals, ``totals`` (at least n_nodes long,
+    reused from tree to tree).
     """
     n_nodes = parent.size
     n_outputs = targets.shape[1]
     counts[:] = 0
     values[:] = 0.0
-    totals = np.zeros(n_nodes)
+    totals[:n_nodes] = 0.0
     for i in range(leaf_of_point.size):
         leaf = leaf_of_point[i]
         counts[leaf] += 1

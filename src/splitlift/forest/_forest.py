@@ -183,7 +183,7 @@ class _StitForest(BaseEstimator):
         else:
             grow_to = float(np.ldexp(lifetime, exponent))
         grown = self._parallel(_grow_data_batch, rows, columns, root_box, targets, weights,
-                               grow_to, exponent, seeds)
+                               grow_to, exponent, tuning, seeds)
         trees = [tree for tree, _ in grown]
         if not tuning:
             return trees, exponent, None, None
@@ -367,8 +367,10 @@ def _warn_if_out_of_range(lifetime: float, rescaled: float, exponent: int) -> No
 
 
 # ---------------------------------------------------------------- batch workers
-def _grow_data_batch(rows, columns, root_box, targets, weights, lifetime, exponent, seeds):
-    """Grown trees (offsets in lifted units, times on the rescaled clock), with leaves.
+def _grow_data_batch(rows, columns, root_box, targets, weights, lifetime, exponent,
+                     keep_leaves, seeds):
+    """Grown trees (offsets in lifted units, times on the rescaled clock), each with its
+    leaf of every point if ``keep_leaves`` (else None).
 
     Trees are packed into shared stores of at most about ``_STORE_BYTES``: a
     new store opens when the free room is less than a tree could need
@@ -381,17 +383,21 @@ def _grow_data_batch(rows, columns, root_box, targets, weights, lifetime, expone
     per_store = max(1, min(len(seeds),
                            _STORE_BYTES // (capacity * NodeStore.node_bytes(n_outputs))))
     store = None
-    leaves = np.empty((len(seeds), n_samples), np.int32)
+    # one leaf array per tree when tuning needs them after growth, else one for all
+    leaves = np.empty((len(seeds) if keep_leaves else 1, n_samples), np.int32)
+    workspace = _compiled.growth_workspace(*rows.shape)
+    totals = np.empty(capacity)
     grown = []
-    for seed, leaf_of_point in zip(seeds, leaves, strict=True):
+    for number, seed in enumerate(seeds):
+        leaf_of_point = leaves[number if keep_leaves else 0]
         if store is None or store.free < capacity:
             store = NodeStore(capacity * per_store, n_outputs)
         n_nodes = _compiled.grow_from_data(rows, columns, root_box, lifetime, seed, exponent,
-                                           *store.room(), leaf_of_point)
+                                           *store.room(), leaf_of_point, workspace)
         routing, parent, split_time, counts, value = store.take(n_nodes)
-        _compiled.node_values(parent, leaf_of_point, targets, weights, counts, value)
+        _compiled.node_values(parent, leaf_of_point, targets, weights, counts, value, totals)
         tree = tree_from_growth(routing, parent, split_time, counts, value, lifetime)
-        grown.append((tree, leaf_of_point))
+        grown.append((tree, leaf_of_point if keep_leaves else None))
     return grown
 
 
@@ -427,7 +433,8 @@ def _filled(tree: StitTree, leaf_of_point: np.ndarray, targets: np.ndarray,
             weights: np.ndarray) -> StitTree:
     counts = np.empty(tree.n_nodes, np.int32)
     value = np.empty((tree.n_nodes, targets.shape[1]))
-    _compiled.node_values(tree.parent, leaf_of_point, targets, weights, counts, value)
+    _compiled.node_values(tree.parent, leaf_of_point, targets, weights, counts, value,
+                          np.empty(tree.n_nodes))
     return tree_from_growth(tree.routing, tree.parent, tree.split_time, counts, value,
                             tree.lifetime)
 
