@@ -24,8 +24,6 @@ EXACT_EXTENT_BELOW = 16
 # A cell whose lifted values fit in this many bytes is grown from a compact copy
 # of its rows, so the passes over it stay in the core's cache.
 LOCAL_CELL_BYTES = 1 << 19
-# Uniforms drawn per call of numba's generator (a quarter of the cost of one call per draw).
-_UNIFORMS_PER_REFILL = 512
 # The copy of a cell set aside asks for the values of the point this many places ahead.
 _PREFETCH_AHEAD = 8
 
@@ -84,7 +82,7 @@ def _partition(values, point_stride, column_stride, direction, orders, buffer, s
 
 
 @njit(cache=True, nogil=True)
-def grow_from_data(rows, columns, root_box, lifetime, seed, exponent, routing, parent,
+def grow_from_data(rows, columns, root_box, lifetime, generator, exponent, routing, parent,
                    split_time, leaf_of_point, workspace):
     """Grow one Mondrian tree whose cells use the extent of their training points.
 
@@ -100,9 +98,9 @@ def grow_from_data(rows, columns, root_box, lifetime, seed, exponent, routing, p
     lifetime : float
         Lifetime in the units of ``rows``; ``inf`` grows until every leaf
         holds one distinct point.
-    seed : int
-        Seeds the random stream of the thread that grows the tree, so the
-        tree depends on the seed alone.
+    generator : numpy.random.Generator
+        The tree's own random stream (seeded per tree, so the tree depends
+        on its seed alone, whatever thread grows it).
     exponent : int
         The offsets are recorded multiplied by ``2**exponent``: in the units
         of the lifted data when ``rows`` hold them divided by that power.
@@ -148,14 +146,6 @@ def grow_from_data(rows, columns, root_box, lifetime, seed, exponent, routing, p
     its rows with a stride, which costs less than transposing each copy.
     """
     m, n = columns.shape
-    # inside compiled code np.random is numba's own per-thread stream, not numpy's global
-    # state; seeding it here makes the tree a function of its seed alone (a Generator
-    # argument would cost half a second of typing at the first call of every process)
-    np.random.seed(seed)  # noqa: NPY002
-    # uniforms are drawn in bulk; the stream and the order of use are those of single
-    # draws, so are the trees
-    uniforms = np.empty(_UNIFORMS_PER_REFILL)
-    next_uniform = np.array([_UNIFORMS_PER_REFILL])  # all used: refill at the first draw
     parent[0] = -1
     _make_leaf(routing, split_time, 0)
 
@@ -168,8 +158,7 @@ def grow_from_data(rows, columns, root_box, lifetime, seed, exponent, routing, p
         orders[0, i] = i
     n_nodes, set_aside, n_set_aside = _grow_subtree(
         rows, columns.reshape(columns.size), 1, n, orders, point_ids, 0, 0.0, box, lifetime,
-        point_store.size, exponent, routing, parent, split_time, leaf_of_point, 1, uniforms,
-        next_uniform)
+        point_store.size, exponent, routing, parent, split_time, leaf_of_point, 1, generator)
     for item in range(n_set_aside):
         start, end = int(set_aside[item, 1]), int(set_aside[item, 2])
         count = end - start
@@ -182,7 +171,7 @@ def grow_from_data(rows, columns, root_box, lifetime, seed, exponent, routing, p
         n_nodes = _grow_subtree(
             local_rows, local_rows.reshape(local_rows.size), m, 1, local_orders, points,
             int(set_aside[item, 0]), set_aside[item, 4], box, lifetime, 0, exponent, routing,
-            parent, split_time, leaf_of_point, n_nodes, uniforms, next_uniform)[0]
+            parent, split_time, leaf_of_point, n_nodes, generator)[0]
     return n_nodes
 
 
@@ -276,20 +265,6 @@ def routing_records(direction, offset, left, exponent):
     return records
 
 
-@njit(cache=True, nogil=True)
-def _refill(uniforms):
-    uniforms[:] = np.random.random(uniforms.size)  # noqa: NPY002
-
-
-@njit(cache=True, nogil=True, inline="always")
-def _uniform(uniforms, next_uniform):
-    """The next uniform on [0, 1) of the buffer, and the new position in it."""
-    if next_uniform == uniforms.size:
-        _refill(uniforms)
-        next_uniform = 0
-    return uniforms[next_uniform], next_uniform + 1
-
-
 # what stopped _grow_cells: the subtree is done, or an array needs more room
 _DONE, _LOG_FULL, _SET_ASIDE_FULL = 0, 1, 2
 
@@ -297,7 +272,7 @@ _DONE, _LOG_FULL, _SET_ASIDE_FULL = 0, 1, 2
 @njit(cache=True, nogil=True)
 def _grow_subtree(rows, values, point_stride, column_stride, orders, point_ids, root,
                   root_birth, box, lifetime, set_aside_at, exponent, routing, parent,
-                  split_time, leaf_of_point, n_nodes, uniforms, next_uniform):
+                  split_time, leaf_of_point, n_nodes, generator):
     """Grow the subtree of cell ``root``, which holds all of ``orders[0]``, depth first.
 
     ``rows[i]`` are the lifted values of training point ``point_ids[i]``,
@@ -306,8 +281,8 @@ def _grow_subtree(rows, values, point_stride, column_stride, orders, point_ids, 
     most ``set_aside_at`` points (other than the root) are not grown but
     returned as rows ``(node, start, end, row of orders, birth, box...)``.
     Cuts are recorded with their offsets multiplied by ``2**exponent``.
-    Random numbers come from ``uniforms``, whose next unused entry is
-    ``uniforms[next_uniform[0]]``. Returns the new node count, those rows and their number.
+    Random numbers come from ``generator``. Returns the new node count,
+    those rows and their number.
     """
     m = rows.shape[1]
     size = orders.shape[1] + 1
@@ -325,7 +300,7 @@ def _grow_subtree(rows, values, point_stride, column_stride, orders, point_ids, 
         status = _grow_cells(rows, values, point_stride, column_stride, orders, point_ids,
                              root, box, lifetime, set_aside_at, exponent, routing, parent,
                              split_time, leaf_of_point, stack_index, stack_value,
-                             log_position, log_value, set_aside, state, uniforms, next_uniform)
+                             log_position, log_value, set_aside, state, generator)
         if status == _DONE:
             return state[2], set_aside, state[3]
         if status == _LOG_FULL:
@@ -338,8 +313,7 @@ def _grow_subtree(rows, values, point_stride, column_stride, orders, point_ids, 
 @njit(cache=True, nogil=True)
 def _grow_cells(rows, values, point_stride, column_stride, orders, point_ids, root, box,
                 lifetime, set_aside_at, exponent, routing, parent, split_time, leaf_of_point,
-                stack_index, stack_value, log_position, log_value, set_aside, state, uniforms,
-                next_uniform):
+                stack_index, stack_value, log_position, log_value, set_aside, state, generator):
     """The depth-first loop of :func:`_grow_subtree`; returns a status, saves ``state``.
 
     A cell is a range of positions in one row of ``orders``; its split writes
@@ -350,7 +324,6 @@ def _grow_cells(rows, values, point_stride, column_stride, orders, point_ids, ro
     """
     m = rows.shape[1]
     depth, log_length, n_nodes, n_set_aside = state[0], state[1], state[2], state[3]
-    drawn = next_uniform[0]
     widths = np.empty(m)
     lows = np.empty(m)
     status = _DONE
@@ -445,14 +418,15 @@ def _grow_cells(rows, values, point_stride, column_stride, orders, point_ids, ro
         while True:
             if not rate > 0.0:
                 break  # all points of the cell coincide
-            uniform, drawn = _uniform(uniforms, drawn)
-            clock += -np.log(1.0 - uniform) / rate  # an Exp(1) waiting time, as numpy draws it
+            # an Exp(1) waiting time by numpy's ziggurat method (Marsaglia & Tsang 2000),
+            # as numba compiles it: a table lookup for most draws, where -log(1 - U)
+            # would take a logarithm every time
+            clock += generator.standard_exponential() / rate
             if clock > lifetime:
                 break
             # one uniform point on the widths laid end to end picks the direction (∝ width)
             # and, by where it falls inside that width, the uniform offset
-            uniform, drawn = _uniform(uniforms, drawn)
-            target = uniform * rate
+            target = generator.random() * rate
             chosen, total = -1, 0.0
             for k in range(m):
                 width = widths[k]
@@ -513,7 +487,6 @@ def _grow_cells(rows, values, point_stride, column_stride, orders, point_ids, ro
             for position in range(start, end):
                 leaf_of_point[point_ids[orders[buffer, position]]] = node
     state[0], state[1], state[2], state[3] = depth, log_length, n_nodes, n_set_aside
-    next_uniform[0] = drawn
     return status
 
 

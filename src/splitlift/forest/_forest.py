@@ -392,7 +392,8 @@ def _grow_data_batch(rows, columns, root_box, targets, weights, lifetime, expone
         leaf_of_point = leaves[number if keep_leaves else 0]
         if store is None or store.free < capacity:
             store = NodeStore(capacity * per_store, n_outputs)
-        n_nodes = _compiled.grow_from_data(rows, columns, root_box, lifetime, seed, exponent,
+        n_nodes = _compiled.grow_from_data(rows, columns, root_box, lifetime,
+                                           np.random.default_rng(seed), exponent,
                                            *store.room(), leaf_of_point, workspace)
         routing, parent, split_time, counts, value = store.take(n_nodes)
         _compiled.node_values(parent, leaf_of_point, targets, weights, counts, value, totals)
