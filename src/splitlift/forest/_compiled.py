@@ -429,15 +429,17 @@ def _grow_cells(rows, values, point_stride, column_stride, orders, point_ids, ro
             target = generator.random() * rate
             chosen, total = -1, 0.0
             for k in range(m):
-                width = widths[k]
-                if width > 0.0:
-                    total += width
+                total += widths[k]  # (a zero width leaves the total: it never ends the scan)
+                if target < total:
                     chosen = k
-                    if target < total:
+                    break
+            if chosen < 0:  # rounding left the target at the very end: the last positive width
+                for k in range(m - 1, -1, -1):
+                    if widths[k] > 0.0:
+                        chosen = k
                         break
-            if chosen < 0:
-                break  # rounding left a rate above zero when every width had shrunk to it
-            # (rounding may leave the target at the very end: the last positive width)
+                if chosen < 0:
+                    break  # rounding left a rate above zero when every width had shrunk to it
             low, width = lows[chosen], widths[chosen]
             cut = low + min(max(target - (total - width), 0.0), width)
 
