@@ -199,8 +199,8 @@ def _local_copy(rows, points, row_store, order_store):
     """A compact copy of the rows of ``points`` and a first order of them, in the stores.
 
     The rows are read in no predictable order, so the copy asks for each a
-    few points ahead (about a tenth of the time to grow a tree at n = 1e5,
-    m = 30, was spent waiting for them).
+    few points ahead (waiting for them had taken about 8% of the time to
+    grow a tree at n = 1e5, m = 30).
     """
     count, m = points.size, rows.shape[1]
     local_rows = row_store[: count * m].reshape((count, m))
