@@ -50,13 +50,11 @@ def _set_logged(box, position, value, log_position, log_value, log_length):
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _partition(values, point_stride, column_stride, direction, orders, buffer, start, end,
-               cut):
+def _partition(columns, direction, orders, buffer, start, end, cut):
     """One branch-free pass over the cell ``orders[buffer, start:end]`` along a column.
 
-    The value of point i along direction k is ``values[k * column_stride +
-    i * point_stride]``: ``values`` is either the flat columns (strides 1
-    and n) or the flat rows (strides m and 1).
+    ``columns[k, i]`` is the value of point i along direction k: the
+    data's columns, or the transposed view of a compact copy's rows.
 
     Writes the points with ``value <= cut`` to the front and the others to
     the back of the same range in the other row of ``orders``; returns the
@@ -65,12 +63,12 @@ def _partition(values, point_stride, column_stride, direction, orders, buffer, s
     hottest loop.
     """
     source, target = np.uint64(buffer), np.uint64(1 - buffer)
-    base, step = np.uint64(direction) * np.uint64(column_stride), np.uint64(point_stride)
+    column = np.uint64(direction)
     front, back = np.uint64(start), np.uint64(end - 1)
     lowest, highest = np.inf, -np.inf
     for position in range(np.uint64(start), np.uint64(end)):
         point = orders[source, position]
-        value = values[base + np.uint64(point) * step]
+        value = columns[column, point]
         lowest = min(lowest, value)
         highest = max(highest, value)
         goes_left = value <= cut
@@ -157,8 +155,8 @@ def grow_from_data(rows, columns, root_box, lifetime, generator, exponent, routi
     for i in range(n):
         orders[0, i] = i
     n_nodes, set_aside, n_set_aside = _grow_subtree(
-        rows, columns.reshape(columns.size), 1, n, orders, point_ids, 0, 0.0, box, lifetime,
-        point_store.size, exponent, routing, parent, split_time, leaf_of_point, 1, generator)
+        rows, columns, orders, point_ids, 0, 0.0, box, lifetime, point_store.size, exponent,
+        routing, parent, split_time, leaf_of_point, 1, generator)
     for item in range(n_set_aside):
         start, end = int(set_aside[item, 1]), int(set_aside[item, 2])
         count = end - start
@@ -169,9 +167,9 @@ def grow_from_data(rows, columns, root_box, lifetime, generator, exponent, routi
         local_rows, local_orders = _local_copy(rows, points, row_store, order_store)
         box[:] = set_aside[item, 5:]
         n_nodes = _grow_subtree(
-            local_rows, local_rows.reshape(local_rows.size), m, 1, local_orders, points,
-            int(set_aside[item, 0]), set_aside[item, 4], box, lifetime, 0, exponent, routing,
-            parent, split_time, leaf_of_point, n_nodes, generator)[0]
+            local_rows, local_rows.T, local_orders, points, int(set_aside[item, 0]),
+            set_aside[item, 4], box, lifetime, 0, exponent, routing, parent, split_time,
+            leaf_of_point, n_nodes, generator)[0]
     return n_nodes
 
 
@@ -270,14 +268,13 @@ _DONE, _LOG_FULL, _SET_ASIDE_FULL = 0, 1, 2
 
 
 @njit(cache=True, nogil=True)
-def _grow_subtree(rows, values, point_stride, column_stride, orders, point_ids, root,
-                  root_birth, box, lifetime, set_aside_at, exponent, routing, parent,
-                  split_time, leaf_of_point, n_nodes, generator):
+def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifetime,
+                  set_aside_at, exponent, routing, parent, split_time, leaf_of_point,
+                  n_nodes, generator):
     """Grow the subtree of cell ``root``, which holds all of ``orders[0]``, depth first.
 
-    ``rows[i]`` are the lifted values of training point ``point_ids[i]``,
-    and ``values`` the same values flat, laid out as :func:`_partition`
-    reads them; ``box`` holds the root's box on entry. Cells of at
+    ``rows[i]`` and ``columns[:, i]`` are the lifted values of training
+    point ``point_ids[i]``; ``box`` holds the root's box on entry. Cells of at
     most ``set_aside_at`` points (other than the root) are not grown but
     returned as rows ``(node, start, end, row of orders, birth, box...)``.
     Cuts are recorded with their offsets multiplied by ``2**exponent``.
@@ -297,10 +294,10 @@ def _grow_subtree(rows, values, point_stride, column_stride, orders, point_ids, 
     # growing an array inside the loop would cost reference counting on every step,
     # so the loop stops when one is full and resumes after it has grown
     while True:
-        status = _grow_cells(rows, values, point_stride, column_stride, orders, point_ids,
-                             root, box, lifetime, set_aside_at, exponent, routing, parent,
-                             split_time, leaf_of_point, stack_index, stack_value,
-                             log_position, log_value, set_aside, state, generator)
+        status = _grow_cells(rows, columns, orders, point_ids, root, box, lifetime,
+                             set_aside_at, exponent, routing, parent, split_time,
+                             leaf_of_point, stack_index, stack_value, log_position,
+                             log_value, set_aside, state, generator)
         if status == _DONE:
             return state[2], set_aside, state[3]
         if status == _LOG_FULL:
@@ -311,9 +308,9 @@ def _grow_subtree(rows, values, point_stride, column_stride, orders, point_ids, 
 
 
 @njit(cache=True, nogil=True)
-def _grow_cells(rows, values, point_stride, column_stride, orders, point_ids, root, box,
-                lifetime, set_aside_at, exponent, routing, parent, split_time, leaf_of_point,
-                stack_index, stack_value, log_position, log_value, set_aside, state, generator):
+def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside_at,
+                exponent, routing, parent, split_time, leaf_of_point, stack_index,
+                stack_value, log_position, log_value, set_aside, state, generator):
     """The depth-first loop of :func:`_grow_subtree`; returns a status, saves ``state``.
 
     A cell is a range of positions in one row of ``orders``; its split writes
@@ -443,8 +440,8 @@ def _grow_cells(rows, values, point_stride, column_stride, orders, point_ids, ro
             low, width = lows[chosen], widths[chosen]
             cut = low + min(max(target - (total - width), 0.0), width)
 
-            n_left, lowest, highest = _partition(values, point_stride, column_stride, chosen,
-                                                 orders, buffer, start, end, cut)
+            n_left, lowest, highest = _partition(columns, chosen, orders, buffer, start, end,
+                                                 cut)
             if n_left == 0 or n_left == count:
                 if not exact:
                     # the cut misses the points: tighten this direction, the clock runs on
