@@ -589,7 +589,7 @@ def add_tree_values(rows, routing, value, total):
 
 @njit(cache=True, nogil=True)
 def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point, targets,
-                      weights, grid, total):
+                      weights, weights_equal, grid, total):
     """Add one tree's leave-one-out predictions of its training points at every lifetime.
 
     Parameters
@@ -600,6 +600,8 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     targets : ndarray of shape (n, n_outputs)
     weights : ndarray of shape (n,)
         Positive sample weights (ones when none were given).
+    weights_equal : bool
+        Whether all weights are equal (the caller checks once for every tree).
     grid : ndarray, ascending
         Lifetimes, in the units of ``split_time``.
     total : ndarray of shape (n_outputs, n_grid, n)
@@ -650,9 +652,6 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     for node in range(n_nodes - 1, 0, -1):  # children have larger ids than their parent
         totals[parent[node]] += totals[node]
     common_weight = weights[0]
-    weights_equal = True
-    for point in range(1, weights.size):
-        weights_equal &= weights[point] == common_weight
     # node serves grid[first:stop]; its first is where its parent's run stopped
     stops = np.empty(n_nodes, np.int64)
     for node in range(n_nodes):

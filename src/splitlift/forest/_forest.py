@@ -240,6 +240,7 @@ class _StitForest(BaseEstimator):
         # outputs in groups, so that one batch's predictions stay within _TUNING_BYTES
         group = max(1, _TUNING_BYTES // (8 * n_samples * grid.size))
         errors = np.zeros(grid.size)
+        weights_equal = bool(np.all(weights == weights[0]))
         for first in range(0, n_outputs, group):
             outputs = slice(first, first + group)
             part = np.ascontiguousarray(targets[:, outputs])
@@ -249,7 +250,8 @@ class _StitForest(BaseEstimator):
             batches = Parallel(n_jobs=self.n_jobs, prefer="threads", return_as="generator")(
                 delayed(_leave_one_out_batch)(trees[start : start + _TREES_PER_BATCH],
                                               leaves[start : start + _TREES_PER_BATCH],
-                                              outputs, part, centre, weights, grid)
+                                              outputs, part, centre, weights,
+                                              weights_equal, grid)
                 for start in range(0, len(trees), _TREES_PER_BATCH)
             )
             total = None
@@ -417,7 +419,8 @@ def _grow_window_batch(normals, upper, lifetime, exponent, lifted_center, seeds)
     return partitions
 
 
-def _leave_one_out_batch(trees, leaves, outputs, targets, centre, weights, grid):
+def _leave_one_out_batch(trees, leaves, outputs, targets, centre, weights, weights_equal,
+                         grid):
     """Sum over ``trees`` of the leave-one-out predictions minus ``centre``, shape
     (outputs, grid, n); ``targets`` are centred on it too."""
     differences = np.zeros((targets.shape[1], grid.size, targets.shape[0]))
@@ -425,7 +428,7 @@ def _leave_one_out_batch(trees, leaves, outputs, targets, centre, weights, grid)
         value = tree.value[:, outputs] - centre
         _compiled.add_leave_one_out(tree.routing, tree.parent, tree.split_time,
                                     tree.n_node_samples, value, leaf_of_point, targets,
-                                    weights, grid, differences)
+                                    weights, weights_equal, grid, differences)
     _compiled.running_sum_over_lifetimes(differences)
     return differences
 
