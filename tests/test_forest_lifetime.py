@@ -139,6 +139,57 @@ def test_auto_lifetime_is_the_leave_one_out_minimum_of_the_pruned_forest():
         np.testing.assert_array_equal(chosen.value, pruned.value)
 
 
+def _weighted_leave_one_out_path(trees, X, y, weights, grid):
+    """Weighted leave-one-out error path from the training points of every cell directly
+    (plain Python; a cell holding only the point defers to its nearest ancestor)."""
+    n = len(y)
+    path = []
+    for lifetime in grid:
+        predictions = np.zeros(n)
+        for tree in trees:
+            ancestors = []
+            for point in X:
+                node, seen = 0, {0}
+                while tree.direction[node] >= 0:
+                    node = tree.left[node] + (point[tree.direction[node]] > tree.offset[node])
+                    seen.add(node)
+                ancestors.append(seen)
+            for i in range(n):
+                node = _leaf_at(tree, X[i], lifetime)
+                inside = [j for j in range(n) if node in ancestors[j]]
+                while len(inside) < 2:
+                    node = tree.parent[node]
+                    inside = [j for j in range(n) if node in ancestors[j]]
+                weight = weights[inside].sum() - weights[i]
+                total = (weights[inside] * y[inside]).sum() - weights[i] * y[i]
+                predictions[i] += total / weight / len(trees)
+        path.append(np.sum(weights * (predictions - y) ** 2) / weights.sum())
+    return np.array(path)
+
+
+@pytest.mark.parametrize("extent", ["data", "window"])
+def test_weighted_auto_lifetime_path_matches_the_cells_directly(extent):
+    # Unequal weights, and in a window also empty cells, cells of one point that are cut
+    # and leaves of many points: the path against sums over each cell's points.
+    rng = np.random.default_rng(11)
+    X = rng.uniform(-1, 1, size=(40, 2))
+    y = np.sin(3 * X[:, 0]) + 0.3 * rng.normal(size=40)
+    weights = rng.uniform(0.2, 3.0, size=40)
+    settings = dict(n_trees=3, random_state=12, extent=extent)
+    if extent == "window":
+        settings["window"] = [[-1.5, -1.5], [1.5, 1.5]]
+    auto = StitForestRegressor(**settings).fit(X, y, sample_weight=weights)
+    grid = auto.lifetime_grid_
+    full = StitForestRegressor(lifetime=grid[-1] if extent == "window" else np.inf,
+                               **settings).fit(X, y, sample_weight=weights)
+    trees = full.trees_  # no lift: the trees cut X itself
+    if extent == "window":
+        counts = np.concatenate([tree.n_node_samples for tree in trees])
+        assert (counts == 0).any() and (counts == 1).any() and (counts[1:] > 2).any()
+    expected = _weighted_leave_one_out_path(trees, X, y, weights, grid)
+    np.testing.assert_allclose(auto.lifetime_path_, expected, rtol=1e-10)
+
+
 @pytest.mark.parametrize("scale", [2.0**-900, 1e-300, 2.0**1000, 1e307])
 def test_auto_lifetime_does_not_depend_on_the_scale_of_the_data(scale):
     # A common scale changes nothing but the units of λ: the choice is made on data

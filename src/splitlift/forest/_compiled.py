@@ -618,70 +618,89 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     (point, lifetime) pair is then served exactly once; a run of lifetimes
     costs two entries of the difference array, not one per lifetime. A point's
     prediction in a cell leaves the point out with its whole weight,
-    ``(sum - w_i y_i) / (total - w_i)`` over weighted sums and totals; a cell
-    holding only the point uses its nearest ancestor holding others.
+    ``(sum - w_i y_i) / (total - w_i)`` over weighted sums and totals. A cell
+    holding only the point predicts what its parent does (all its descendants
+    hold the point alone too), so the parent's run for that point extends to the
+    end of the grid and cells of fewer than two points are skipped.
     """
     n_nodes = parent.size
     n_grid = grid.size
+    n_outputs = targets.shape[1]
     start = np.zeros(n_nodes, np.int64)
-    holder = np.zeros(n_nodes, np.int64)  # nearest ancestor-or-self with two points or more
     for node in range(n_nodes):  # parents first: children split the parent's run
         child = routing[node].left
         if child != node:
             start[child] = start[node]
             start[child + 1] = start[node] + counts[child]
-            holder[child] = child if counts[child] > 1 else holder[node]
-            holder[child + 1] = child + 1 if counts[child + 1] > 1 else holder[node]
-    # the points in subtree order, with their weights and targets, which the loop below
-    # then reads in sequence; and the weight of the points in every leaf
-    n_outputs = targets.shape[1]
+    # the points in subtree order, with their targets (and weights), which the loop
+    # below then reads in sequence
     cursor = start.copy()
     members = np.empty(leaf_of_point.size, np.int64)
-    member_weights = np.empty(members.size)
     member_targets = np.empty((n_outputs, members.size))
-    totals = np.zeros(n_nodes)
+    member_weights = np.empty(members.size if not weights_equal else 0)
     for point in range(leaf_of_point.size):
         leaf = leaf_of_point[point]
         position = cursor[leaf]
         cursor[leaf] += 1
         members[position] = point
-        member_weights[position] = weights[point]
         for k in range(n_outputs):
             member_targets[k, position] = targets[point, k]
-        totals[leaf] += weights[point]
-    for node in range(n_nodes - 1, 0, -1):  # children have larger ids than their parent
-        totals[parent[node]] += totals[node]
     common_weight = weights[0]
+    totals = np.empty(0)
+    if not weights_equal:
+        totals = np.zeros(n_nodes)
+        for position in range(members.size):
+            member_weights[position] = weights[members[position]]
+            totals[leaf_of_point[members[position]]] += member_weights[position]
+        for node in range(n_nodes - 1, 0, -1):  # children have larger ids than their parent
+            totals[parent[node]] += totals[node]
     # node serves grid[first:stop]; its first is where its parent's run stopped
     stops = np.empty(n_nodes, np.int64)
     for node in range(n_nodes):
         first = 0 if node == 0 else stops[parent[node]]
-        stop = first
-        if routing[node].left == node:
-            stop = n_grid
-        else:
+        child = routing[node].left
+        stop = n_grid
+        if child != node:
+            stop = first
             while stop < n_grid and grid[stop] < split_time[node]:
                 stop += 1
-        stops[node] = stop
-        if first >= stop or counts[node] == 0:
+            stops[node] = stop
+        if counts[node] < 2:
             continue
-        source = holder[node]
-        weight_total = totals[source]
-        # equal weights (no sample weights given): one reciprocal per node, the value the
-        # loop would compute for every point
-        reciprocal = 0.0
-        if weights_equal:
-            reciprocal = 1.0 / (weight_total - common_weight)
+        # points alone in a child keep this node's prediction to the end of the grid
+        lowest, highest = start[node], start[node] + counts[node]
+        alone_low = child != node and counts[child] == 1
+        alone_high = child != node and counts[child + 1] == 1
+        if first >= stop and not (alone_low or alone_high):
+            continue
+        weight_total = counts[node] * common_weight if weights_equal else totals[node]
+        reciprocal = 1.0 / (weight_total - common_weight) if weights_equal else 0.0
         for k in range(n_outputs):
-            numerator = value[source, k] * weight_total
-            for position in range(start[node], start[node] + counts[node]):
-                weight = member_weights[position]
-                if not weights_equal:
-                    reciprocal = 1.0 / (weight_total - weight)
-                prediction = (numerator - weight * member_targets[k, position]) * reciprocal
+            numerator = value[node, k] * weight_total
+            for position in (lowest, highest - 1):  # a point alone: one entry
+                if (alone_low and position == lowest) or (alone_high and position > lowest):
+                    total[k, first, members[position]] += _left_out(
+                        numerator, weight_total, reciprocal, position, k, member_targets,
+                        member_weights, weights_equal, common_weight)
+            if first >= stop:
+                continue
+            for position in range(lowest + alone_low, highest - alone_high):
+                prediction = _left_out(numerator, weight_total, reciprocal, position, k,
+                                       member_targets, member_weights, weights_equal,
+                                       common_weight)
                 total[k, first, members[position]] += prediction
                 if stop < n_grid:  # (the same every turn: the compiler hoists it)
                     total[k, stop, members[position]] -= prediction
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _left_out(numerator, weight_total, reciprocal, position, k, member_targets,
+              member_weights, weights_equal, common_weight):
+    """A cell's prediction for the point at ``position`` with that point left out."""
+    if weights_equal:
+        return (numerator - common_weight * member_targets[k, position]) * reciprocal
+    weight = member_weights[position]
+    return (numerator - weight * member_targets[k, position]) * (1.0 / (weight_total - weight))
 
 
 @njit(cache=True, nogil=True)
