@@ -736,7 +736,9 @@ def prune_tree(routing, parent, split_time, counts, value, lifetime, new_id, pru
     """The tree at a smaller lifetime: cells born later dropped, later cuts made leaves.
 
     ``new_id`` comes from :func:`pruned_ids`; writes the pruned tree's nodes
-    to the ``pruned*`` arrays, as long as the number of nodes it keeps.
+    to the ``pruned*`` arrays, as long as the number of nodes it keeps. These
+    may share memory with the tree's arrays, starting at or before them: node
+    ``i`` is read in full before anything is written at ``new_id[i] <= i``.
     """
     n_outputs = value.shape[1]
     for node in range(parent.size):  # field by field: whole-record and row copies cost more
@@ -755,6 +757,32 @@ def prune_tree(routing, parent, split_time, counts, value, lifetime, new_id, pru
         pruned_counts[target] = counts[node]
         for k in range(n_outputs):
             pruned_value[target, k] = value[node, k]
+
+
+@njit(cache=True, nogil=True)
+def prune_packed(routing, parent, split_time, counts, value, sizes, lifetime):
+    """Prune trees packed one after another in shared arrays, in place, and pack the
+    pruned trees to the front; returns their sizes.
+
+    Tree ``k`` occupies ``sizes[k]`` entries after the trees before it. Its
+    pruned nodes are written at or before the entries they are read from (a
+    pruned tree starts no later than its grown one, and ids only shrink), and
+    every entry is read before anything is written over it, so no second copy
+    of the trees and no fresh memory is needed.
+    """
+    kept_sizes = np.empty(sizes.size, np.int64)
+    read = written = 0
+    for k in range(sizes.size):
+        grown = slice(read, read + sizes[k])
+        new_id, kept = pruned_ids(parent[grown], split_time[grown], lifetime)
+        into = slice(written, written + kept)
+        prune_tree(routing[grown], parent[grown], split_time[grown], counts[grown],
+                   value[grown], lifetime, new_id, routing[into], parent[into],
+                   split_time[into], counts[into], value[into])
+        kept_sizes[k] = kept
+        read += sizes[k]
+        written += kept
+    return kept_sizes
 
 
 @njit(cache=True, nogil=True)

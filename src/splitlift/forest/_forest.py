@@ -184,14 +184,18 @@ class _StitForest(BaseEstimator):
             grow_to = float(np.ldexp(lifetime, exponent))
         grown = self._parallel(_grow_data_batch, rows, columns, root_box, targets, weights,
                                grow_to, exponent, tuning, seeds)
-        trees = [tree for tree, _ in grown]
+        trees = [tree for tree, _, _ in grown]
         if not tuning:
             return trees, exponent, None, None
-        chosen, path = self._tune(trees, [leaves for _, leaves in grown], targets, weights,
+        chosen, path = self._tune(trees, [leaves for _, leaves, _ in grown], targets, weights,
                                   grid)
-        if not np.isinf(chosen):  # at inf every grown tree is its own pruned tree
-            trees = prune_all(trees, chosen, effective_n_jobs(self.n_jobs))
-        return trees, exponent, grid, path
+        if np.isinf(chosen):  # at inf every grown tree is its own pruned tree
+            return trees, exponent, grid, path
+        stores = list({id(store): store for _, _, store in grown}.values())  # in tree order
+        del grown, trees  # the stores shrink in place, which their views would forbid
+        pruned = threaded_map(lambda store: store.pruned_trees(chosen), stores,
+                              effective_n_jobs(self.n_jobs))
+        return [tree for batch in pruned for tree in batch], exponent, grid, path
 
     def _grow_in_window(self, linear, lifted_center, half, lifted, targets, weights, lifetime,
                         seeds):
@@ -372,7 +376,7 @@ def _warn_if_out_of_range(lifetime: float, rescaled: float, exponent: int) -> No
 def _grow_data_batch(rows, columns, root_box, targets, weights, lifetime, exponent,
                      keep_leaves, seeds):
     """Grown trees (offsets in lifted units, times on the rescaled clock), each with its
-    leaf of every point if ``keep_leaves`` (else None).
+    leaf of every point if ``keep_leaves`` (else None) and the store that holds it.
 
     Trees are packed into shared stores of at most about ``_STORE_BYTES``: a
     new store opens when the free room is less than a tree could need
@@ -400,7 +404,7 @@ def _grow_data_batch(rows, columns, root_box, targets, weights, lifetime, expone
         routing, parent, split_time, counts, value = store.take(n_nodes)
         _compiled.node_values(parent, leaf_of_point, targets, weights, counts, value, totals)
         tree = tree_from_growth(routing, parent, split_time, counts, value, lifetime)
-        grown.append((tree, leaf_of_point if keep_leaves else None))
+        grown.append((tree, leaf_of_point if keep_leaves else None, store))
     return grown
 
 
