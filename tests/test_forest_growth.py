@@ -10,7 +10,7 @@ from sklearn.ensemble import ExtraTreesRegressor
 
 from splitlift.forest import StitForestRegressor
 from splitlift.forest._compiled import EXACT_EXTENT_BELOW, running_sum_over_lifetimes
-from splitlift.forest._tree import prune, prune_all
+from splitlift.forest._tree import NodeStore, prune, prune_all
 
 
 def _cells_near_the_root(tree, X, max_depth):
@@ -174,6 +174,33 @@ def test_pruning_a_batch_equals_pruning_each_tree_alone():
                 assert batched.n_nodes == single.n_nodes
                 for name in ("routing", "parent", "split_time", "n_node_samples", "value"):
                     np.testing.assert_array_equal(getattr(batched, name), getattr(single, name))
+
+
+@pytest.mark.parametrize("view_alive", [False, True])
+def test_pruning_a_store_in_place_equals_pruning_each_tree_alone(view_alive):
+    # Trees packed in one store are pruned in place and packed to its front, the store
+    # shrinking to them; with a view of the store still alive it copies instead.
+    rng = np.random.default_rng(12)
+    X = rng.normal(size=(300, 3))
+    y = np.column_stack([X[:, 0], rng.normal(size=300)])
+    trees = StitForestRegressor(lifetime=np.inf, n_trees=4, random_state=13).fit(
+        X, y[:, 0]).trees_
+    names = ("routing", "parent", "split_time", "n_node_samples", "value")
+    for lifetime in (0.5, 2.0, 1e9):
+        store = NodeStore(sum(tree.n_nodes for tree in trees) + 7, 1)
+        for tree in trees:
+            for array, name in zip(store.take(tree.n_nodes), names, strict=True):
+                array[...] = getattr(tree, name)
+        del array  # (the last view taken)
+        alive = store.parent[:3] if view_alive else None
+        pruned = store.pruned_trees(lifetime)
+        assert store.parent.size == sum(tree.n_nodes for tree in pruned)
+        for tree, in_store in zip(trees, pruned, strict=True):
+            alone = prune(tree, lifetime)
+            assert in_store.lifetime == lifetime
+            for name in names:
+                np.testing.assert_array_equal(getattr(in_store, name), getattr(alone, name))
+        del alive
 
 
 def test_trees_at_a_finite_lifetime_are_packed_without_gaps():
