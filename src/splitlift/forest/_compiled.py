@@ -615,8 +615,9 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     same tree pruned; Lakshminarayanan, Roy & Teh 2014), so every node
     serves a run of grid lifetimes for all the points of its subtree. The
     points are laid out so that every subtree is a contiguous run, and each
-    (point, lifetime) pair is then served exactly once; a run of lifetimes
-    costs two entries of the difference array, not one per lifetime. A point's
+    (point, lifetime) pair is then served exactly once; a point's runs follow
+    one another along the grid, so each costs one entry of the difference
+    array (the change from the run before), not one per lifetime. A point's
     prediction in a cell leaves the point out with its whole weight,
     ``(sum - w_i y_i) / (total - w_i)`` over weighted sums and totals. A cell
     holding only the point predicts what its parent does (all its descendants
@@ -654,9 +655,15 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
             totals[leaf_of_point[members[position]]] += member_weights[position]
         for node in range(n_nodes - 1, 0, -1):  # children have larger ids than their parent
             totals[parent[node]] += totals[node]
-    # node serves grid[first:stop]; its first is where its parent's run stopped
+    # node serves grid[first:stop]; its first is where its parent's run stopped. Along the
+    # lifetimes a point's prediction changes only where a run starts, from the prediction
+    # of the nearest ancestor that served a run (``before``) to the new cell's: one entry
     stops = np.empty(n_nodes, np.int64)
+    before = np.empty(n_nodes, np.int64)
+    before[0] = -1
     for node in range(n_nodes):
+        if counts[node] < 2:  # its children hold one point or none: no stop, no before
+            continue
         first = 0 if node == 0 else stops[parent[node]]
         child = routing[node].left
         stop = n_grid
@@ -665,32 +672,38 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
             while stop < n_grid and grid[stop] < split_time[node]:
                 stop += 1
             stops[node] = stop
-        if counts[node] < 2:
-            continue
-        # points alone in a child keep this node's prediction to the end of the grid
-        lowest, highest = start[node], start[node] + counts[node]
+            before[child] = before[child + 1] = node if first < stop else before[node]
+        # points alone in a child keep this node's prediction to the end of the grid, so
+        # they start its run even when it is empty for the others
         alone_low = child != node and counts[child] == 1
         alone_high = child != node and counts[child + 1] == 1
         if first >= stop and not (alone_low or alone_high):
             continue
+        previous = before[node]
         weight_total = counts[node] * common_weight if weights_equal else totals[node]
         reciprocal = 1.0 / (weight_total - common_weight) if weights_equal else 0.0
+        previous_total = previous_reciprocal = 0.0
+        if previous >= 0:
+            previous_total = (counts[previous] * common_weight if weights_equal
+                              else totals[previous])
+            if weights_equal:
+                previous_reciprocal = 1.0 / (previous_total - common_weight)
+        lowest, highest = start[node], start[node] + counts[node]
+        if first >= stop:  # only the points alone in a child
+            lowest = lowest if alone_low else highest - 1
+            highest = highest if alone_high else lowest + 1
         for k in range(n_outputs):
             numerator = value[node, k] * weight_total
-            for position in (lowest, highest - 1):  # a point alone: one entry
-                if (alone_low and position == lowest) or (alone_high and position > lowest):
-                    total[k, first, members[position]] += _left_out(
-                        numerator, weight_total, reciprocal, position, k, member_targets,
-                        member_weights, weights_equal, common_weight)
-            if first >= stop:
-                continue
-            for position in range(lowest + alone_low, highest - alone_high):
-                prediction = _left_out(numerator, weight_total, reciprocal, position, k,
-                                       member_targets, member_weights, weights_equal,
-                                       common_weight)
-                total[k, first, members[position]] += prediction
-                if stop < n_grid:  # (the same every turn: the compiler hoists it)
-                    total[k, stop, members[position]] -= prediction
+            previous_numerator = value[previous, k] * previous_total if previous >= 0 else 0.0
+            for position in range(lowest, highest):
+                change = _left_out(numerator, weight_total, reciprocal, position, k,
+                                   member_targets, member_weights, weights_equal,
+                                   common_weight)
+                if previous >= 0:  # (the same every turn: the compiler hoists it)
+                    change -= _left_out(previous_numerator, previous_total,
+                                        previous_reciprocal, position, k, member_targets,
+                                        member_weights, weights_equal, common_weight)
+                total[k, first, members[position]] += change
 
 
 @njit(cache=True, nogil=True, inline="always")
