@@ -627,12 +627,16 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     n_nodes = parent.size
     n_grid = grid.size
     n_outputs = targets.shape[1]
-    start = np.zeros(n_nodes, np.int64)
+    start = np.zeros(n_nodes + 2, np.int64)
+    shared = np.empty(n_nodes, np.int64)  # the nodes of two points or more, in order
+    n_shared = 0
     for node in range(n_nodes):  # parents first: children split the parent's run
         child = routing[node].left
-        if child != node:
-            start[child] = start[node]
-            start[child + 1] = start[node] + counts[child]
+        into = child if child != node else n_nodes  # a leaf writes past the end: no branch
+        start[into] = start[node]
+        start[into + 1] = start[node] + counts[child]
+        shared[n_shared] = node
+        n_shared += counts[node] > 1
     # the points in subtree order, with their targets (and weights), which the loop
     # below then reads in sequence
     cursor = start.copy()
@@ -661,9 +665,10 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     stops = np.empty(n_nodes, np.int64)
     before = np.empty(n_nodes, np.int64)
     before[0] = -1
-    for node in range(n_nodes):
-        if counts[node] < 2:  # its children hold one point or none: no stop, no before
-            continue
+    # (nodes of fewer points are left out: their children hold one point or none and
+    # need neither a stop nor a before; skipping them in the loop mispredicted branches)
+    for item in range(n_shared):
+        node = shared[item]
         first = 0 if node == 0 else stops[parent[node]]
         child = routing[node].left
         stop = n_grid
