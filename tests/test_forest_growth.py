@@ -9,7 +9,7 @@ from scipy import stats
 from sklearn.ensemble import ExtraTreesRegressor
 
 from splitlift.forest import StitForestRegressor
-from splitlift.forest._compiled import EXACT_EXTENT_BELOW, running_sum_over_lifetimes
+from splitlift.forest._compiled import EXACT_EXTENT_BELOW, squared_errors_over_lifetimes
 from splitlift.forest._tree import NodeStore, prune, prune_all
 
 
@@ -105,13 +105,17 @@ def test_exact_cells_with_many_directions_follow_the_law(n_points):
     assert stats.kstest(relative, stats.uniform().cdf).pvalue > 1e-3
 
 
-def test_running_sum_over_lifetimes_is_numpy_cumsum():
-    # The compiled running sum replaces np.cumsum(axis=1); same additions, same order,
-    # so the results agree bit for bit (numpy as the reference).
-    differences = np.random.default_rng(14).normal(size=(3, 31, 257))
-    expected = np.cumsum(differences, axis=1)
-    running_sum_over_lifetimes(differences)
-    np.testing.assert_array_equal(differences, expected)
+def test_squared_errors_over_lifetimes_match_numpy():
+    # The compiled pass against numpy's cumulative sum over the grid, mean, residual,
+    # square and weighted sum over outputs and points.
+    rng = np.random.default_rng(14)
+    differences = rng.normal(size=(3, 31, 257))
+    targets = rng.normal(size=(257, 3))
+    weights = rng.uniform(0.5, 2.0, size=257)
+    residuals = np.cumsum(differences, axis=1) / 7 - targets.T[:, None, :]
+    expected = (weights * residuals**2).sum(axis=(0, 2))
+    errors = squared_errors_over_lifetimes(differences, targets, weights, 7)
+    np.testing.assert_allclose(errors, expected, rtol=1e-12)
 
 
 def test_results_do_not_depend_on_n_jobs_for_grown_trees():

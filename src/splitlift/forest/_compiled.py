@@ -722,17 +722,29 @@ def _left_out(numerator, weight_total, reciprocal, position, k, member_targets,
 
 
 @njit(cache=True, nogil=True)
-def running_sum_over_lifetimes(differences):
-    """In place, the cumulative sum over axis 1 of (outputs, grid, n) differences.
+def squared_errors_over_lifetimes(differences, targets, weights, n_trees):
+    """Weighted sums of squared errors of the forest's prediction at every lifetime.
 
-    The same additions in the same order as ``np.cumsum(differences,
-    axis=1)``, along contiguous rows: a tenth of numpy's time on this
-    layout.
+    ``differences`` (outputs, grid, n) are the trees' summed predictions as
+    differences along the lifetimes (:func:`add_leave_one_out`); their
+    running sum over the grid, divided by ``n_trees``, is the prediction.
+    Returns ``sum_i weights[i] * sum_k (prediction - targets[i, k])**2`` per
+    lifetime, in one pass that reads each row of differences once and writes
+    nothing but a running row.
     """
-    for k in range(differences.shape[0]):
-        for g in range(1, differences.shape[1]):
-            for i in range(differences.shape[2]):
-                differences[k, g, i] += differences[k, g - 1, i]
+    n_outputs, n_grid, n = differences.shape
+    errors = np.zeros(n_grid)
+    running = np.empty(n)
+    for k in range(n_outputs):
+        running[:] = 0.0
+        for g in range(n_grid):
+            error = 0.0
+            for i in range(n):
+                running[i] += differences[k, g, i]
+                residual = running[i] / n_trees - targets[i, k]
+                error += weights[i] * (residual * residual)
+            errors[g] += error
+    return errors
 
 
 @njit(cache=True, nogil=True)

@@ -264,10 +264,8 @@ class _StitForest(BaseEstimator):
                     total = batch
                 else:
                     total += batch
-            total /= len(trees)
-            total -= part.T[:, None, :]
-            np.square(total, out=total)
-            errors += (weights * total).sum(axis=(0, 2))
+            errors += _compiled.squared_errors_over_lifetimes(total, part, weights,
+                                                              len(trees))
         path = errors / weights.sum()
         return float(grid[int(np.argmin(path))]), path
 
@@ -425,15 +423,14 @@ def _grow_window_batch(normals, upper, lifetime, exponent, lifted_center, seeds)
 
 def _leave_one_out_batch(trees, leaves, outputs, targets, centre, weights, weights_equal,
                          grid):
-    """Sum over ``trees`` of the leave-one-out predictions minus ``centre``, shape
-    (outputs, grid, n); ``targets`` are centred on it too."""
+    """Sum over ``trees`` of the leave-one-out predictions minus ``centre``, as differences
+    along the grid, shape (outputs, grid, n); ``targets`` are centred on it too."""
     differences = np.zeros((targets.shape[1], grid.size, targets.shape[0]))
     for tree, leaf_of_point in zip(trees, leaves, strict=True):
         value = tree.value[:, outputs] - centre
         _compiled.add_leave_one_out(tree.routing, tree.parent, tree.split_time,
                                     tree.n_node_samples, value, leaf_of_point, targets,
                                     weights, weights_equal, grid, differences)
-    _compiled.running_sum_over_lifetimes(differences)
     return differences
 
 
