@@ -218,16 +218,15 @@ class NodeStore:
         return (self.routing[taken], self.parent[taken], self.split_time[taken],
                 self.counts[taken], self.value[taken])
 
-
     def pruned_trees(self, lifetime: float) -> list[StitTree]:
         """Every tree taken, pruned to ``lifetime`` in place; the store shrinks to them.
 
-        The arrays are resized in place (a shrinking ``realloc``, which moves
-        no data and frees the tail) once the trees taken before are gone; while
-        a view of them is alive, numpy refuses and the pruned part is copied
-        instead. Pruning writes only
-        memory the grown trees had already touched; arrays of their own for
-        the pruned trees measured twice the time, in first writes to fresh pages.
+        Pruning writes only memory the grown trees had already touched
+        (arrays of their own for the pruned trees took up to twice the time in
+        a process's first fits, in first writes to fresh pages). The arrays
+        then shrink in place (a shrinking ``realloc`` moves no data and frees
+        the tail) once the trees taken before are gone; while a view of them
+        is still alive numpy refuses, and the pruned part is copied instead.
         """
         sizes = _compiled.prune_packed(self.routing, self.parent, self.split_time,
                                        self.counts, self.value,
