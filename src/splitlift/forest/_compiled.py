@@ -748,45 +748,58 @@ def squared_errors_over_lifetimes(differences, targets, weights, n_trees):
 
 
 @njit(cache=True, nogil=True)
-def pruned_ids(parent, split_time, lifetime):
-    """Ids in the tree at a smaller lifetime (-1: born later, dropped), and their number."""
-    new_id = np.full(parent.size, -1, np.int64)
-    kept = 0
-    for node in range(parent.size):  # parents first, so a kept node's parent is known
-        birth = 0.0 if node == 0 else split_time[parent[node]]
-        if birth <= lifetime:
-            new_id[node] = kept
-            kept += 1
-    return new_id, kept
+def pruned_size(parent, split_time, lifetime):
+    """Number of nodes in the tree at a smaller lifetime: those born by then."""
+    kept = 1
+    for node in range(1, parent.size):
+        kept += split_time[parent[node]] <= lifetime
+    return kept
 
 
 @njit(cache=True, nogil=True)
-def prune_tree(routing, parent, split_time, counts, value, lifetime, new_id, pruned,
-               pruned_parent, pruned_split, pruned_counts, pruned_value):
+def prune_tree(routing, parent, split_time, counts, value, lifetime, pruned, pruned_parent,
+               pruned_split, pruned_counts, pruned_value):
     """The tree at a smaller lifetime: cells born later dropped, later cuts made leaves.
 
-    ``new_id`` comes from :func:`pruned_ids`; writes the pruned tree's nodes
-    to the ``pruned*`` arrays, as long as the number of nodes it keeps. These
-    may share memory with the tree's arrays, starting at or before them: node
-    ``i`` is read in full before anything is written at ``new_id[i] <= i``.
+    Writes the pruned tree's nodes to the ``pruned*`` arrays (at least
+    :func:`pruned_size` long) in one pass, and returns their number. A node is
+    kept when its parent was kept as a cut cell; kept nodes keep their order,
+    so a cell's left child is the first node kept after it whose parent it
+    is. The ``pruned*`` arrays may share memory with the tree's, starting at
+    or before them: node ``i`` is read in full before anything is written at
+    its new id, which is at most ``i``, and a new id is written only once.
     """
     n_outputs = value.shape[1]
-    for node in range(parent.size):  # field by field: whole-record and row copies cost more
-        target = new_id[node]
-        if target < 0:
-            continue
-        if routing[node].left != node and split_time[node] <= lifetime:
+    new_id = np.empty(parent.size, np.int64)
+    kept = 0
+    for node in range(parent.size):
+        above = -1
+        if node > 0:
+            above = new_id[parent[node]]
+            if above < 0 or not pruned_split[above] <= lifetime:  # born after the lifetime
+                new_id[node] = -1
+                continue
+        target = kept
+        kept += 1
+        new_id[node] = target
+        # field by field (whole-record and row copies cost more), all read before written
+        left, offset, direction = routing[node].left, routing[node].offset, routing[node].direction
+        split, count = split_time[node], counts[node]
+        if left != node and split <= lifetime:
             record = pruned[target]
-            record.offset = routing[node].offset
-            record.left = new_id[routing[node].left]
-            record.direction = routing[node].direction
-            pruned_split[target] = split_time[node]
+            record.offset = offset
+            record.left = -1  # until its left child, the next node kept below it, arrives
+            record.direction = direction
+            pruned_split[target] = split
         else:
             _make_leaf(pruned, pruned_split, target)
-        pruned_parent[target] = -1 if node == 0 else new_id[parent[node]]
-        pruned_counts[target] = counts[node]
+        if above >= 0 and pruned[above].left < 0:
+            pruned[above].left = target
+        pruned_parent[target] = above
+        pruned_counts[target] = count
         for k in range(n_outputs):
             pruned_value[target, k] = value[node, k]
+    return kept
 
 
 @njit(cache=True, nogil=True)
@@ -804,14 +817,12 @@ def prune_packed(routing, parent, split_time, counts, value, sizes, lifetime):
     read = written = 0
     for k in range(sizes.size):
         grown = slice(read, read + sizes[k])
-        new_id, kept = pruned_ids(parent[grown], split_time[grown], lifetime)
-        into = slice(written, written + kept)
-        prune_tree(routing[grown], parent[grown], split_time[grown], counts[grown],
-                   value[grown], lifetime, new_id, routing[into], parent[into],
-                   split_time[into], counts[into], value[into])
-        kept_sizes[k] = kept
+        into = slice(written, read + sizes[k])
+        kept_sizes[k] = prune_tree(routing[grown], parent[grown], split_time[grown],
+                                   counts[grown], value[grown], lifetime, routing[into],
+                                   parent[into], split_time[into], counts[into], value[into])
         read += sizes[k]
-        written += kept
+        written += kept_sizes[k]
     return kept_sizes
 
 

@@ -267,12 +267,11 @@ def prune_all(trees: list[StitTree], lifetime: float, n_threads: int = 1) -> lis
     lifetime = float(lifetime)
 
     def pruned(tree: StitTree) -> StitTree:
-        new_id, kept = _compiled.pruned_ids(tree.parent, tree.split_time, lifetime)
+        kept = _compiled.pruned_size(tree.parent, tree.split_time, lifetime)
         routing, parent, split_time, counts, value = NodeStore(
             kept, tree.value.shape[1]).take(kept)
         _compiled.prune_tree(tree.routing, tree.parent, tree.split_time, tree.n_node_samples,
-                             tree.value, lifetime, new_id, routing, parent, split_time,
-                             counts, value)
+                             tree.value, lifetime, routing, parent, split_time, counts, value)
         return StitTree(routing=routing, parent=parent, split_time=split_time,
                         n_node_samples=counts, value=value, lifetime=lifetime)
 
