@@ -827,6 +827,16 @@ def prune_packed(routing, parent, split_time, counts, value, sizes, lifetime):
 
 
 @njit(cache=True, nogil=True)
+def move_down(words, source, target, count):
+    """Copy ``count`` words of ``words`` from ``source`` to ``target <= source``.
+
+    Forward, word after word as far as the result goes, so an overlap is safe.
+    """
+    for i in range(count):
+        words[target + i] = words[source + i]
+
+
+@njit(cache=True, nogil=True)
 def node_depths(parent):
     """Depth of every node (parents come before their children)."""
     depth = np.zeros(parent.size, np.int32)

@@ -174,25 +174,33 @@ def on_lifted_clock(tree: StitTree, exponent: int) -> StitTree:
 
 
 class NodeStore:
-    """Room for the nodes of several trees in shared arrays, handed out in order.
+    """Room for the nodes of several trees in one block of memory, handed out in order.
 
     Growth writes each tree's nodes straight into this room, with no
     full-size scratch arrays and copies per tree. Fresh memory costs one
     fault per page at its first write, and that had taken about a third of
     the time to grow 100 trees at n = 1e5 (243 000 faults; 18 000 with the
-    store, as numpy asks for huge pages on allocations of 4 MB and more
-    where the system allows). Trees take views; entries never handed out are
-    never written, so they stay unmapped.
+    store). The node arrays are views of one allocation, which numpy asks
+    to back with huge pages when it is 4 MB or more (where the system
+    allows): five arrays of their own were each below that at n = 2e4, and
+    faulted 124-146 times per tree against 23. Trees take views; entries
+    never handed out are never written, so they stay unmapped.
     """
 
     def __init__(self, n_nodes: int, n_outputs: int):
-        self.routing = np.empty(n_nodes, _compiled.ROUTING_RECORD)
-        self.parent = np.empty(n_nodes, np.int32)
-        self.split_time = np.empty(n_nodes)
-        self.counts = np.empty(n_nodes, np.int32)
-        self.value = np.empty((n_nodes, n_outputs))
+        self.n_outputs = n_outputs
+        self.memory = np.empty(_layout(n_nodes, n_outputs)[-1], np.uint8)
+        self._view(n_nodes)
         self.used = 0
         self.sizes: list[int] = []  # nodes of each tree taken, in order
+
+    def _view(self, n_nodes: int) -> None:
+        """The node arrays, for room of ``n_nodes``, as views of the block."""
+        offsets = _layout(n_nodes, self.n_outputs)
+        for (name, dtype, per_output), start in zip(_STORE_FIELDS, offsets[:-1], strict=True):
+            shape = (n_nodes, self.n_outputs) if per_output else (n_nodes,)
+            nbytes = np.dtype(dtype).itemsize * int(np.prod(shape))
+            setattr(self, name, self.memory[start : start + nbytes].view(dtype).reshape(shape))
 
     @staticmethod
     def node_bytes(n_outputs: int) -> int:
@@ -223,23 +231,48 @@ class NodeStore:
 
         Pruning writes only memory the grown trees had already touched
         (arrays of their own for the pruned trees took up to twice the time in
-        a process's first fits, in first writes to fresh pages). The arrays
-        then shrink in place (a shrinking ``realloc`` moves no data and frees
-        the tail) once the trees taken before are gone; while a view of them
-        is still alive numpy refuses, and the pruned part is copied instead.
+        a process's first fits, in first writes to fresh pages). Each array's
+        pruned part then moves down to where a store of that size keeps it,
+        and the block shrinks in place (a shrinking ``realloc`` moves no data
+        and frees the tail) once the trees taken before are gone; while a view
+        of it is still alive numpy refuses, and the pruned part is copied instead.
         """
         sizes = _compiled.prune_packed(self.routing, self.parent, self.split_time,
                                        self.counts, self.value,
                                        np.array(self.sizes, np.int64), lifetime)
-        self.used, self.sizes = 0, []
         total = int(sizes.sum())
-        for name in ("routing", "parent", "split_time", "counts", "value"):
-            shape = (total,) + getattr(self, name).shape[1:]
-            try:
-                getattr(self, name).resize(shape)  # (no local name: numpy counts references)
-            except ValueError:  # a view is still alive somewhere (a debugger, a profiler)
-                setattr(self, name, getattr(self, name)[:total].copy())
+        grown, packed = _layout(self.parent.size, self.n_outputs), _layout(total, self.n_outputs)
+        for field, (name, _, _) in enumerate(_STORE_FIELDS):
+            if packed[field] < grown[field]:  # (in 8-byte words: offsets are 64-byte aligned)
+                _compiled.move_down(self.memory.view(np.uint64), grown[field] // 8,
+                                    packed[field] // 8,
+                                    -(-getattr(self, name)[:total].nbytes // 8))
+        for name, _, _ in _STORE_FIELDS:  # the block cannot shrink under views of it
+            delattr(self, name)
+        try:
+            self.memory.resize(packed[-1])  # (no local name: numpy counts references)
+        except ValueError:  # a view is still alive somewhere (a debugger, a profiler)
+            self.memory = self.memory[: packed[-1]].copy()
+        self._view(total)
+        self.used, self.sizes = 0, []
         return [tree_from_growth(*self.take(int(size)), lifetime) for size in sizes]
+
+
+#: The node arrays of a store, in the order they lie in its block: name, dtype and
+#: whether the array has a column per output.
+_STORE_FIELDS = (("routing", _compiled.ROUTING_RECORD, False), ("parent", np.int32, False),
+                 ("split_time", np.float64, False), ("counts", np.int32, False),
+                 ("value", np.float64, True))
+
+
+def _layout(n_nodes: int, n_outputs: int) -> list[int]:
+    """Byte offsets of the node arrays of a store of ``n_nodes`` in its block, then its
+    size; each array starts on a 64-byte boundary."""
+    offsets = [0]
+    for _, dtype, width in _STORE_FIELDS:
+        nbytes = np.dtype(dtype).itemsize * n_nodes * (n_outputs if width else 1)
+        offsets.append(offsets[-1] + -(-nbytes // 64) * 64)
+    return offsets
 
 
 def tree_from_growth(routing, parent, split_time, counts, value, lifetime: float) -> StitTree:
