@@ -180,10 +180,11 @@ def test_pruning_a_batch_equals_pruning_each_tree_alone():
                     np.testing.assert_array_equal(getattr(batched, name), getattr(single, name))
 
 
-@pytest.mark.parametrize("view_alive", [False, True])
-def test_pruning_a_store_in_place_equals_pruning_each_tree_alone(view_alive):
+@pytest.mark.parametrize("view_alive, pickled", [(False, False), (True, False), (False, True)])
+def test_pruning_a_store_in_place_equals_pruning_each_tree_alone(view_alive, pickled):
     # Trees packed in one store are pruned in place and packed to its front, the store
-    # shrinking to them; with a view of the store still alive it copies instead.
+    # shrinking to them; with a view of the store still alive it copies instead. A store
+    # that travelled between processes (pickled, as under Dask) prunes the same.
     rng = np.random.default_rng(12)
     X = rng.normal(size=(300, 3))
     y = np.column_stack([X[:, 0], rng.normal(size=300)])
@@ -196,6 +197,8 @@ def test_pruning_a_store_in_place_equals_pruning_each_tree_alone(view_alive):
             for array, name in zip(store.take(tree.n_nodes), names, strict=True):
                 array[...] = getattr(tree, name)
         del array  # (the last view taken)
+        if pickled:
+            store = pickle.loads(pickle.dumps(store))
         alive = store.parent[:3] if view_alive else None
         pruned = store.pruned_trees(lifetime)
         assert store.parent.size == sum(tree.n_nodes for tree in pruned)

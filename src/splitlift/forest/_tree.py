@@ -202,6 +202,17 @@ class NodeStore:
             nbytes = np.dtype(dtype).itemsize * int(np.prod(shape))
             setattr(self, name, self.memory[start : start + nbytes].view(dtype).reshape(shape))
 
+    def __getstate__(self) -> dict:
+        # the block alone: its views would come back as copies of their own (a store
+        # travels when trees are grown in other processes, as under Dask)
+        return {"memory": self.memory, "n_outputs": self.n_outputs,
+                "n_nodes": self.parent.size, "used": self.used, "sizes": self.sizes}
+
+    def __setstate__(self, state: dict) -> None:
+        self.memory, self.n_outputs = state["memory"], state["n_outputs"]
+        self.used, self.sizes = state["used"], state["sizes"]
+        self._view(state["n_nodes"])
+
     @staticmethod
     def node_bytes(n_outputs: int) -> int:
         """Bytes one node takes in a store (and in the tree that views it): routing
