@@ -685,14 +685,12 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
         if first >= stop and not (alone_low or alone_high):
             continue
         previous = before[node]
-        weight_total = counts[node] * common_weight if weights_equal else totals[node]
-        reciprocal = 1.0 / (weight_total - common_weight) if weights_equal else 0.0
+        weight_total, reciprocal = _cell_weight(node, counts, totals, weights_equal,
+                                                common_weight)
         previous_total = previous_reciprocal = 0.0
         if previous >= 0:
-            previous_total = (counts[previous] * common_weight if weights_equal
-                              else totals[previous])
-            if weights_equal:
-                previous_reciprocal = 1.0 / (previous_total - common_weight)
+            previous_total, previous_reciprocal = _cell_weight(previous, counts, totals,
+                                                               weights_equal, common_weight)
         lowest, highest = start[node], start[node] + counts[node]
         if first >= stop:  # only the points alone in a child
             lowest = lowest if alone_low else highest - 1
@@ -709,6 +707,16 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
                                         previous_reciprocal, position, k, member_targets,
                                         member_weights, weights_equal, common_weight)
                 total[k, first, members[position]] += change
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _cell_weight(node, counts, totals, weights_equal, common_weight):
+    """A cell's weight total and, with equal weights, the reciprocal of that total less
+    one point's weight (0 otherwise: each point then has its own)."""
+    if weights_equal:
+        weight_total = counts[node] * common_weight
+        return weight_total, 1.0 / (weight_total - common_weight)
+    return totals[node], 0.0
 
 
 @njit(cache=True, nogil=True, inline="always")

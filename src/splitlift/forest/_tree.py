@@ -191,7 +191,6 @@ class NodeStore:
         self.n_outputs = n_outputs
         self.memory = np.empty(_layout(n_nodes, n_outputs)[-1], np.uint8)
         self._view(n_nodes)
-        self.used = 0
         self.sizes: list[int] = []  # nodes of each tree taken, in order
 
     def _view(self, n_nodes: int) -> None:
@@ -206,18 +205,24 @@ class NodeStore:
         # the block alone: its views would come back as copies of their own (a store
         # travels when trees are grown in other processes, as under Dask)
         return {"memory": self.memory, "n_outputs": self.n_outputs,
-                "n_nodes": self.parent.size, "used": self.used, "sizes": self.sizes}
+                "n_nodes": self.parent.size, "sizes": self.sizes}
 
     def __setstate__(self, state: dict) -> None:
         self.memory, self.n_outputs = state["memory"], state["n_outputs"]
-        self.used, self.sizes = state["used"], state["sizes"]
+        self.sizes = state["sizes"]
         self._view(state["n_nodes"])
 
     @staticmethod
     def node_bytes(n_outputs: int) -> int:
         """Bytes one node takes in a store (and in the tree that views it): routing
         record, parent (int32), split time (float64), count (int32) and value."""
-        return _compiled.ROUTING_RECORD.itemsize + 4 + 8 + 4 + 8 * n_outputs
+        return sum(np.dtype(dtype).itemsize * (n_outputs if per_output else 1)
+                   for _, dtype, per_output in _STORE_FIELDS)
+
+    @property
+    def used(self) -> int:
+        """Entries taken."""
+        return sum(self.sizes)
 
     @property
     def free(self) -> int:
@@ -232,10 +237,8 @@ class NodeStore:
     def take(self, n_nodes: int) -> tuple[np.ndarray, ...]:
         """The next ``n_nodes`` entries of every array, as views."""
         taken = slice(self.used, self.used + n_nodes)
-        self.used += n_nodes
         self.sizes.append(n_nodes)
-        return (self.routing[taken], self.parent[taken], self.split_time[taken],
-                self.counts[taken], self.value[taken])
+        return tuple(getattr(self, name)[taken] for name, _, _ in _STORE_FIELDS)
 
     def pruned_trees(self, lifetime: float) -> list[StitTree]:
         """Every tree taken, pruned to ``lifetime`` in place; the store shrinks to them.
@@ -265,7 +268,7 @@ class NodeStore:
         except ValueError:  # a view is still alive somewhere (a debugger, a profiler)
             self.memory = self.memory[: packed[-1]].copy()
         self._view(total)
-        self.used, self.sizes = 0, []
+        self.sizes = []
         return [tree_from_growth(*self.take(int(size)), lifetime) for size in sizes]
 
 
@@ -280,8 +283,8 @@ def _layout(n_nodes: int, n_outputs: int) -> list[int]:
     """Byte offsets of the node arrays of a store of ``n_nodes`` in its block, then its
     size; each array starts on a 64-byte boundary."""
     offsets = [0]
-    for _, dtype, width in _STORE_FIELDS:
-        nbytes = np.dtype(dtype).itemsize * n_nodes * (n_outputs if width else 1)
+    for _, dtype, per_output in _STORE_FIELDS:
+        nbytes = np.dtype(dtype).itemsize * n_nodes * (n_outputs if per_output else 1)
         offsets.append(offsets[-1] + -(-nbytes // 64) * 64)
     return offsets
 
