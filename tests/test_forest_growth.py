@@ -187,9 +187,8 @@ def test_pruning_a_store_in_place_equals_pruning_each_tree_alone(view_alive, pic
     # that travelled between processes (pickled, as under Dask) prunes the same.
     rng = np.random.default_rng(12)
     X = rng.normal(size=(300, 3))
-    y = np.column_stack([X[:, 0], rng.normal(size=300)])
     trees = StitForestRegressor(lifetime=np.inf, n_trees=4, random_state=13).fit(
-        X, y[:, 0]).trees_
+        X, X[:, 0]).trees_
     names = ("routing", "parent", "split_time", "n_node_samples", "value")
     for lifetime in (0.5, 2.0, 1e9):
         store = NodeStore(sum(tree.n_nodes for tree in trees) + 7, 1)

@@ -143,23 +143,26 @@ def _weighted_leave_one_out_path(trees, X, y, weights, grid):
     """Weighted leave-one-out error path from the training points of every cell directly
     (plain Python; a cell holding only the point defers to its nearest ancestor)."""
     n = len(y)
+    ancestors = []  # per tree, the nodes on every training point's path
+    for tree in trees:
+        paths = []
+        for point in X:
+            node, seen = 0, {0}
+            while tree.direction[node] >= 0:
+                node = tree.left[node] + (point[tree.direction[node]] > tree.offset[node])
+                seen.add(node)
+            paths.append(seen)
+        ancestors.append(paths)
     path = []
     for lifetime in grid:
         predictions = np.zeros(n)
-        for tree in trees:
-            ancestors = []
-            for point in X:
-                node, seen = 0, {0}
-                while tree.direction[node] >= 0:
-                    node = tree.left[node] + (point[tree.direction[node]] > tree.offset[node])
-                    seen.add(node)
-                ancestors.append(seen)
+        for tree, paths in zip(trees, ancestors, strict=True):
             for i in range(n):
                 node = _leaf_at(tree, X[i], lifetime)
-                inside = [j for j in range(n) if node in ancestors[j]]
+                inside = [j for j in range(n) if node in paths[j]]
                 while len(inside) < 2:
                     node = tree.parent[node]
-                    inside = [j for j in range(n) if node in ancestors[j]]
+                    inside = [j for j in range(n) if node in paths[j]]
                 weight = weights[inside].sum() - weights[i]
                 total = (weights[inside] * y[inside]).sum() - weights[i] * y[i]
                 predictions[i] += total / weight / len(trees)
