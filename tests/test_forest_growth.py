@@ -9,7 +9,11 @@ from scipy import stats
 from sklearn.ensemble import ExtraTreesRegressor
 
 from splitlift.forest import StitForestRegressor
-from splitlift.forest._compiled import EXACT_EXTENT_BELOW, squared_errors_over_lifetimes
+from splitlift.forest._compiled import (
+    EXACT_EXTENT_BELOW,
+    _extents,
+    squared_errors_over_lifetimes,
+)
 from splitlift.forest._tree import NodeStore, prune, prune_all
 
 
@@ -27,16 +31,19 @@ def _cells_near_the_root(tree, X, max_depth):
     return cells
 
 
-def test_cut_times_directions_and_offsets_follow_the_extent_of_the_points():
+@pytest.mark.parametrize("scales", [[1.0, 0.3, 2.0], [1.0, 0.3, 2.0, 0.6, 1.4]])
+def test_cut_times_directions_and_offsets_follow_the_extent_of_the_points(scales):
     # Mondrian process on the extent of a cell's points (Roy & Teh 2008; Lakshminarayanan,
     # Roy & Teh 2014): the cut comes after Exp(Σ_k w_k) from the cell's birth, along k with
     # probability w_k / Σ w, at a uniform offset in the points' range along k; w_k is the
     # points' extent. The compiled growth draws from stale, larger boxes and tightens them
     # when a cut misses the points; this checks that the result is still that law, on
     # cells large enough to use the stale boxes. Synthetic uniform points; scipy.stats as
-    # the reference laws; tests at level 1e-3.
+    # the reference laws; tests at level 1e-3. Three directions measure extents one at a
+    # time, five four at a time.
     rng = np.random.default_rng(0)
-    X = rng.uniform(size=(300, 3)) * np.array([1.0, 0.3, 2.0])
+    scales = np.array(scales)
+    X = rng.uniform(size=(300, scales.size)) * scales
     forest = StitForestRegressor(lifetime=np.inf, n_trees=600, random_state=1)
     forest.fit(X, rng.normal(size=300))
     waits, offsets, chosen, probabilities = [], [], [], []
@@ -58,7 +65,7 @@ def test_cut_times_directions_and_offsets_follow_the_extent_of_the_points():
     # direction counts against their expectation: sums of independent Bernoulli draws,
     # each standardised count within 4.5 standard deviations
     probabilities = np.array(probabilities)
-    observed = np.bincount(chosen, minlength=3)
+    observed = np.bincount(chosen, minlength=scales.size)
     expected = probabilities.sum(axis=0)
     spread = np.sqrt((probabilities * (1 - probabilities)).sum(axis=0))
     assert np.all(np.abs(observed - expected) < 4.5 * spread)
@@ -103,6 +110,21 @@ def test_exact_cells_with_many_directions_follow_the_law(n_points):
     assert stats.chisquare(observed, expected).pvalue > 1e-3
     relative = (cuts - X.min(axis=0)[directions]) / widths[directions]
     assert stats.kstest(relative, stats.uniform().cdf).pvalue > 1e-3
+
+
+@pytest.mark.parametrize("m", [1, 3, 4, 5, 8, 30])
+def test_cell_extents_match_numpy(m):
+    # The extents along every direction of a cell's points (its range of positions in one
+    # row of the orders), against numpy's min and max; m >= 4 runs in vector registers.
+    rng = np.random.default_rng(20 + m)
+    rows = rng.normal(size=(40, m))
+    orders = np.stack([rng.permutation(40), rng.permutation(40)]).astype(np.uint32)
+    lows, highs = np.empty(m), np.empty(m)
+    for buffer, start, end in [(0, 0, 40), (1, 7, 8), (1, 3, 22), (0, 39, 40)]:
+        _extents(rows, orders, buffer, start, end, lows, highs)
+        members = rows[orders[buffer, start:end]]
+        np.testing.assert_array_equal(lows, members.min(axis=0))
+        np.testing.assert_array_equal(highs, members.max(axis=0))
 
 
 def test_squared_errors_over_lifetimes_match_numpy():
