@@ -112,19 +112,22 @@ def test_exact_cells_with_many_directions_follow_the_law(n_points):
     assert stats.kstest(relative, stats.uniform().cdf).pvalue > 1e-3
 
 
-@pytest.mark.parametrize("m", [1, 3, 4, 5, 8, 30])
+@pytest.mark.parametrize("m", [1, 3, 4, 5, 8, 10, 16, 17, 30, 33])
 def test_cell_extents_match_numpy(m):
     # The extents along every direction of a cell's points (its range of positions in one
-    # row of the orders), against numpy's min and max; m >= 4 runs in vector registers.
+    # row of the orders), against numpy's min, max and sum; m >= 4 runs in vector
+    # registers, sixteen directions a pass, the last register overlapping the one before.
     rng = np.random.default_rng(20 + m)
     rows = rng.normal(size=(40, m))
     orders = np.stack([rng.permutation(40), rng.permutation(40)]).astype(np.uint32)
-    lows, highs = np.empty(m), np.empty(m)
+    lows, highs, widths = np.empty(m), np.empty(m), np.empty(m)
     for buffer, start, end in [(0, 0, 40), (1, 7, 8), (1, 3, 22), (0, 39, 40)]:
-        _extents(rows, orders, buffer, start, end, lows, highs)
+        rate = _extents(rows, orders, buffer, start, end, lows, highs, widths)
         members = rows[orders[buffer, start:end]]
         np.testing.assert_array_equal(lows, members.min(axis=0))
         np.testing.assert_array_equal(highs, members.max(axis=0))
+        np.testing.assert_array_equal(widths, highs - lows)
+        np.testing.assert_allclose(rate, widths.sum(), rtol=1e-14, atol=0)
 
 
 def test_squared_errors_over_lifetimes_match_numpy():

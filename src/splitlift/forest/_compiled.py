@@ -150,6 +150,7 @@ def grow_from_data(rows, columns, root_box, lifetime, generator, exponent, routi
     _make_leaf(routing, split_time, 0)
 
     box = root_box.copy()  # box[k] is the lower and box[m + k] the upper end along k
+    box_widths = np.empty(m)
 
     # the root's subtree grows on the whole data until its cells are small enough to be
     # set aside; each of those then grows from a compact copy of its points
@@ -168,7 +169,7 @@ def grow_from_data(rows, columns, root_box, lifetime, generator, exponent, routi
             points[i] = orders[buffer, start + i]
         local_rows, local_orders = _local_copy(rows, points, row_store, order_store)
         # the exact box of the copy: proposals of the stale box would often miss its points
-        _extents(local_rows, local_orders, 0, 0, count, box[:m], box[m:])
+        _extents(local_rows, local_orders, 0, 0, count, box[:m], box[m:], box_widths)
         n_nodes = _grow_subtree(
             local_rows, local_rows.T, local_orders, points, int(set_aside[item, 0]),
             set_aside[item, 4], box, lifetime, 0, exponent, routing, parent, split_time,
@@ -237,72 +238,113 @@ def _prefetch(typingctx, array, index):
 
 
 @intrinsic
-def _vector_extents(typingctx, rows, orders, buffer, start, end, lows, highs):
-    """:func:`_extents` four directions at a time, in vector registers; needs ``m >= 4``.
+def _vector_extents(typingctx, rows, orders, buffer, start, end, lows, highs, widths):
+    """:func:`_extents` in vector registers, four directions to a register; needs ``m >= 4``.
 
-    The last group of four overlaps the one before when 4 does not divide m,
-    which min and max do not mind. numba vectorises none of the loops that
+    Each pass over the points' rows covers sixteen directions (four registers
+    of lowest and four of highest values), so a row's index is read once per
+    pass. A register starting past ``m - 4`` starts at ``m - 4`` instead and
+    overlaps the one before, which min and max do not mind; its lanes already
+    counted are left out of the rate. numba vectorises none of the loops that
     compute these extents, so this one is written in LLVM IR.
     """
-    if rows.layout != "C" or orders.layout != "C":
-        return None
+    if any(array.layout != "C" for array in (rows, orders, lows, highs, widths)):
+        return None  # (the loop steps through memory as C arrays lie)
     def codegen(context, builder, signature, args):
-        rows_array = context.make_array(signature.args[0])(context, builder, args[0])
-        orders_array = context.make_array(signature.args[1])(context, builder, args[1])
-        lows_array = context.make_array(signature.args[5])(context, builder, args[5])
-        highs_array = context.make_array(signature.args[6])(context, builder, args[6])
+        arrays = [context.make_array(signature.args[i])(context, builder, args[i])
+                  for i in (0, 1, 5, 6, 7)]
+        rows_array, orders_array, lows_array, highs_array, widths_array = arrays
         int64 = ir.IntType(64)
-        vector = ir.VectorType(ir.DoubleType(), 4)
+        double = ir.DoubleType()
+        vector = ir.VectorType(double, 4)
+        lanes = ir.VectorType(int64, 4)
         m = cgutils.unpack_tuple(builder, rows_array.shape)[1]
         width = cgutils.unpack_tuple(builder, orders_array.shape)[1]
-        first = builder.add(builder.mul(args[2], width), args[3])
-        ids = builder.gep(orders_array.data, [first])
+        ids = builder.gep(orders_array.data, [builder.add(builder.mul(args[2], width), args[3])])
         count = builder.sub(args[4], args[3])
-        low_slot = cgutils.alloca_once(builder, vector)
-        high_slot = cgutils.alloca_once(builder, vector)
-        groups = builder.udiv(builder.add(m, int64(3)), int64(4))
+        lows_slots = [cgutils.alloca_once(builder, vector) for _ in range(4)]
+        highs_slots = [cgutils.alloca_once(builder, vector) for _ in range(4)]
+        zero = ir.Constant(vector, [0.0] * 4)
+        rate_slot = cgutils.alloca_once_value(builder, zero)
         last = builder.sub(m, int64(4))
+        passes = builder.udiv(builder.add(m, int64(15)), int64(16))
 
-        def row_values(j, k):
+        def row_start(j):
             point = builder.zext(builder.load(builder.gep(ids, [j])), int64)
-            element = builder.gep(rows_array.data, [builder.add(builder.mul(point, m), k)])
-            return builder.load(builder.bitcast(element, vector.as_pointer()), align=8)
+            return builder.gep(rows_array.data, [builder.mul(point, m)])
 
-        with cgutils.for_range(builder, groups) as group:
-            k = builder.mul(group.index, int64(4))
-            k = builder.select(builder.icmp_signed("<", k, last), k, last)
-            values = row_values(int64(0), k)
-            builder.store(values, low_slot)
-            builder.store(values, high_slot)
+        def load(row, k):
+            return builder.load(builder.bitcast(builder.gep(row, [k]), vector.as_pointer()),
+                                align=8)
+
+        def splat(value):
+            """A vector of four copies of the integer ``value``."""
+            single = builder.insert_element(ir.Constant(lanes, None), value, int64(0))
+            return builder.shuffle_vector(single, ir.Constant(lanes, None),
+                                          ir.Constant(ir.VectorType(ir.IntType(32), 4), [0] * 4))
+
+        def store(value, array, k):
+            builder.store(value, builder.bitcast(builder.gep(array.data, [k]),
+                                                 vector.as_pointer()), align=8)
+
+        with cgutils.for_range(builder, passes) as pass_:
+            firsts = [builder.add(builder.mul(pass_.index, int64(16)), int64(4 * j))
+                      for j in range(4)]
+            starts = [builder.select(builder.icmp_signed("<", first, last), first, last)
+                      for first in firsts]
+            row = row_start(int64(0))
+            for j in range(4):
+                values = load(row, starts[j])
+                builder.store(values, lows_slots[j])
+                builder.store(values, highs_slots[j])
             with cgutils.for_range(builder, count, start=int64(1)) as point:
-                values = row_values(point.index, k)
-                low = builder.load(low_slot)
-                high = builder.load(high_slot)
-                builder.store(builder.select(builder.fcmp_ordered("<", values, low), values, low),
-                              low_slot)
-                builder.store(builder.select(builder.fcmp_ordered(">", values, high), values,
-                                             high), high_slot)
-            for slot, array in ((low_slot, lows_array), (high_slot, highs_array)):
-                target = builder.bitcast(builder.gep(array.data, [k]), vector.as_pointer())
-                builder.store(builder.load(slot), target, align=8)
-        return context.get_dummy_value()
-    return types.void(rows, orders, types.int64, types.int64, types.int64, lows, highs), codegen
+                row = row_start(point.index)
+                for j in range(4):
+                    values = load(row, starts[j])
+                    low, high = builder.load(lows_slots[j]), builder.load(highs_slots[j])
+                    builder.store(builder.select(builder.fcmp_ordered("<", values, low),
+                                                 values, low), lows_slots[j])
+                    builder.store(builder.select(builder.fcmp_ordered(">", values, high),
+                                                 values, high), highs_slots[j])
+            for j in range(4):
+                low, high = builder.load(lows_slots[j]), builder.load(highs_slots[j])
+                spread = builder.fsub(high, low)
+                store(low, lows_array, starts[j])
+                store(high, highs_array, starts[j])
+                store(spread, widths_array, starts[j])
+                # lanes at or past the register's own first direction are new to the rate
+                direction = builder.add(splat(starts[j]), ir.Constant(lanes, [0, 1, 2, 3]))
+                new = builder.icmp_signed(">=", direction, splat(firsts[j]))
+                builder.store(builder.fadd(builder.load(rate_slot),
+                                           builder.select(new, spread, zero)), rate_slot)
+        rate = builder.load(rate_slot)
+        parts = [builder.extract_element(rate, int64(i)) for i in range(4)]
+        return builder.fadd(builder.fadd(parts[0], parts[1]), builder.fadd(parts[2], parts[3]))
+    return (types.float64(rows, orders, types.int64, types.int64, types.int64, lows, highs,
+                          widths), codegen)
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _extents(rows, orders, buffer, start, end, lows, highs):
-    """``lows[k]``, ``highs[k]`` = min and max of ``rows[orders[buffer, start:end], k]``."""
+def _extents(rows, orders, buffer, start, end, lows, highs, widths):
+    """The extent of the points ``orders[buffer, start:end]`` along every direction.
+
+    Writes the lowest and highest of ``rows[:, k]`` over them to ``lows[k]``
+    and ``highs[k]``, and their difference to ``widths[k]``; returns the sum
+    of the widths, the cell's rate.
+    """
     m = rows.shape[1]
     if m >= 4:
-        _vector_extents(rows, orders, buffer, start, end, lows, highs)
-        return
+        return _vector_extents(rows, orders, buffer, start, end, lows, highs, widths)
+    rate = 0.0
     for k in range(m):
         lowest = highest = rows[orders[buffer, start], k]
         for position in range(start + 1, end):
             value = rows[orders[buffer, position], k]
             lowest = min(lowest, value)
             highest = max(highest, value)
-        lows[k], highs[k] = lowest, highest
+        lows[k], highs[k], widths[k] = lowest, highest, highest - lowest
+        rate += widths[k]
+    return rate
 
 
 @njit(cache=True, nogil=True, inline="always")
@@ -442,21 +484,8 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
                 widths[k] = box[m + k] - box[k]
                 rate += widths[k]
         else:
-            # a few points: their exact widths cost less than waiting for misses (the rate
-            # summed in four independent chains of additions)
-            _extents(rows, orders, buffer, start, end, lows, highs)
-            rate = 0.0
-            k = 0
-            while k + 4 <= m:
-                w0, w1 = highs[k] - lows[k], highs[k + 1] - lows[k + 1]
-                w2, w3 = highs[k + 2] - lows[k + 2], highs[k + 3] - lows[k + 3]
-                widths[k], widths[k + 1], widths[k + 2], widths[k + 3] = w0, w1, w2, w3
-                rate += (w0 + w1) + (w2 + w3)
-                k += 4
-            while k < m:
-                widths[k] = highs[k] - lows[k]
-                rate += widths[k]
-                k += 1
+            # a few points: their exact widths cost less than waiting for misses
+            rate = _extents(rows, orders, buffer, start, end, lows, highs, widths)
 
         was_cut = False
         while True:
