@@ -20,7 +20,7 @@ from numba.extending import intrinsic
 # Cells with at most this many points measure their exact extent along every
 # direction at once (m × count reads); larger cells keep a stale box and tighten
 # it one direction at a time, only when a proposed cut misses their points.
-EXACT_EXTENT_BELOW = 16
+EXACT_EXTENT_BELOW = 32
 # A cell whose lifted values fit in this many bytes is grown from a compact copy
 # of its rows, so the passes over it stay in the core's cache.
 LOCAL_CELL_BYTES = 1 << 19
