@@ -64,19 +64,20 @@ def _partition(columns, direction, orders, buffer, start, end, cut):
     """
     source, target = np.uint64(buffer), np.uint64(1 - buffer)
     column = np.uint64(direction)
-    front, back = np.uint64(start), np.uint64(end - 1)
+    # the i-th point goes to start + (left so far) or to end - 1 - i + (left so far): one
+    # count and one comparison per point
+    left, front, back = np.uint64(0), np.uint64(start), np.uint64(end - 1)
     lowest, highest = np.inf, -np.inf
     for position in range(np.uint64(start), np.uint64(end)):
         point = orders[source, position]
         value = columns[column, point]
         lowest = min(lowest, value)
         highest = max(highest, value)
-        goes_left = value <= cut
-        orders[target, front] = point
-        orders[target, back] = point
-        front += np.uint64(goes_left)
-        back -= np.uint64(not goes_left)
-    return np.int64(front) - start, lowest, highest
+        orders[target, front + left] = point
+        orders[target, back + left] = point
+        left += np.uint64(value <= cut)
+        back -= np.uint64(1)
+    return np.int64(left), lowest, highest
 
 
 @njit(cache=True, nogil=True)
