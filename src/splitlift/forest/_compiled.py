@@ -240,14 +240,15 @@ def _prefetch(typingctx, array, index):
 
 @intrinsic
 def _vector_extents(typingctx, rows, orders, buffer, start, end, lows, highs, widths):
-    """:func:`_extents` in vector registers, four directions to a register; needs ``m >= 4``.
+    """:func:`_extents` in vector registers, four directions to a register.
 
-    Each pass over the points' rows covers sixteen directions (four registers
-    of lowest and four of highest values), so a row's index is read once per
-    pass. A register starting past ``m - 4`` starts at ``m - 4`` instead and
-    overlaps the one before, which min and max do not mind; its lanes already
-    counted are left out of the rate. numba vectorises none of the loops that
-    compute these extents, so this one is written in LLVM IR.
+    Needs ``m >= 4`` and a cell of at least one point. Each pass over the
+    points' rows covers sixteen directions (four registers of lowest and four
+    of highest values), so a row's index is read once per pass. A register
+    starting past ``m - 4`` starts at ``m - 4`` instead and overlaps the one
+    before, which min and max do not mind; its lanes already counted are left
+    out of the rate. numba vectorises none of the loops that compute these
+    extents, so this one is written in LLVM IR.
     """
     if any(array.layout != "C" for array in (rows, orders, lows, highs, widths)):
         return None  # (the loop steps through memory as C arrays lie)
