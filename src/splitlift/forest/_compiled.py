@@ -250,8 +250,10 @@ def _vector_extents(typingctx, rows, orders, buffer, start, end, lows, highs, wi
     out of the rate. numba vectorises none of the loops that compute these
     extents, so this one is written in LLVM IR.
     """
-    if any(array.layout != "C" for array in (rows, orders, lows, highs, widths)):
-        return None  # (the loop steps through memory as C arrays lie)
+    reals = (rows, lows, highs, widths)
+    if (any(array.layout != "C" for array in (*reals, orders)) or orders.dtype != types.uint32
+            or any(array.dtype != types.float64 for array in reals)):
+        return None  # (the loop steps through C arrays of doubles and 32-bit point ids)
     def codegen(context, builder, signature, args):
         arrays = [context.make_array(signature.args[i])(context, builder, args[i])
                   for i in (0, 1, 5, 6, 7)]
