@@ -13,7 +13,9 @@ def _expected_failures(estimator) -> dict:
     # hold, so a weight of k and k copies of a row give other random draws of the trees
     # (the class notes say so; tests/test_forest_weights.py checks exact equality in a
     # window, where the partition ignores the rows). scikit-learn's own random forest
-    # fails this check too.
+    # fails this check too. Fixed-lifetime forests can pass it on the check's small data,
+    # where every cell below the root is small enough to be measured exactly, so a
+    # pass is not a failure here (the mark is not strict).
     return {"check_sample_weight_equivalence_on_dense_data":
             "in data mode, weights and copies of rows give other draws of the trees"}
 
