@@ -185,6 +185,9 @@ def test_the_stit_forest_fit_through_the_dask_joblib_backend_matches_the_default
     weights = np.arange(3000) % 3  # weights travel with the rows (a third are zero)
     local = model().fit(X[:3000], Y[:3000], stitforestregressor__sample_weight=weights)
     with joblib.parallel_backend("dask"):
+        from splitlift.forest._forest import _joblib_would_use_threads
+
+        assert not _joblib_would_use_threads()  # the batches go to the workers
         on_cluster = model().fit(X[:3000], Y[:3000],
                                  stitforestregressor__sample_weight=weights)
         predicted_on_cluster = on_cluster.predict(X[3000:4000])

@@ -154,6 +154,35 @@ def test_results_do_not_depend_on_n_jobs_for_grown_trees():
     np.testing.assert_array_equal(fits[0].apply(X_new), fits[1].apply(X_new))
 
 
+def test_growth_runs_on_plain_threads_unless_the_caller_configures_a_backend(monkeypatch):
+    # With joblib's default threads, batches run on a plain thread pool (joblib's result
+    # loop polls in 10 ms sleeps); a backend the caller configures (processes here, Dask
+    # in tests/test_dask.py) still receives them through joblib, with the same trees.
+    import joblib
+
+    from splitlift.forest import _forest
+
+    rng = np.random.default_rng(8)
+    X, y = rng.normal(size=(400, 3)), rng.normal(size=400)
+    calls = []
+    original = _forest.Parallel
+
+    def counted(*args, **kwargs):
+        calls.append(kwargs.get("prefer"))
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr(_forest, "Parallel", counted)
+    default = StitForestRegressor(lifetime=np.inf, n_trees=6, n_jobs=2, random_state=1)
+    default.fit(X, y)
+    assert calls == []
+    with joblib.parallel_config(backend="loky"):
+        assert not _forest._joblib_would_use_threads()
+        configured = StitForestRegressor(lifetime=np.inf, n_trees=6, n_jobs=2, random_state=1)
+        configured.fit(X, y)
+    assert calls == ["threads"]
+    np.testing.assert_array_equal(default.apply(X), configured.apply(X))
+
+
 def test_memory_per_tree_is_below_scikit_learn_for_the_same_leaves():
     # Reference: scikit-learn's own tree storage (node records and values) for fully grown
     # trees on the same data; both have one leaf per distinct training point.

@@ -14,6 +14,7 @@ from numbers import Integral, Real
 
 import numpy as np
 from joblib import Parallel, delayed, effective_n_jobs
+from joblib.parallel import ThreadingBackend, get_active_backend
 from scipy.spatial import cKDTree
 from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
 from sklearn.utils import check_random_state
@@ -276,11 +277,18 @@ class _StitForest(BaseEstimator):
         parallel; window growth is Python and runs in processes.
         """
         *shared, seeds = args
-        n_batches = min(len(seeds), 4 * max(1, effective_n_jobs(self.n_jobs)))
+        n_jobs = max(1, effective_n_jobs(self.n_jobs))
+        n_batches = min(len(seeds), 4 * n_jobs)
         batches = [list(batch) for batch in np.array_split(np.asarray(seeds), n_batches)]
-        results = Parallel(n_jobs=self.n_jobs, prefer=prefer)(
-            delayed(batch_function)(*shared, batch) for batch in batches
-        )
+        if prefer == "threads" and _joblib_would_use_threads():
+            # the same threads without joblib's result loop, which polls in 10 ms sleeps
+            # (a caller's other backend, such as Dask's, still gets the work)
+            results = threaded_map(lambda batch: batch_function(*shared, batch), batches,
+                                   n_jobs)
+        else:
+            results = Parallel(n_jobs=self.n_jobs, prefer=prefer)(
+                delayed(batch_function)(*shared, batch) for batch in batches
+            )
         return [item for batch in results for item in batch]
 
     # ---------------------------------------------------------------- routing
@@ -345,6 +353,12 @@ def _lift_in_one_blas_thread(lifting: Lifting, X: np.ndarray) -> np.ndarray:
     routing or growth threads that follow need the cores (see :func:`one_blas_thread`)."""
     with one_blas_thread():
         return lifting(X)
+
+
+def _joblib_would_use_threads() -> bool:
+    """Whether joblib, asked for threads here, would use its threading backend: no
+    other backend (processes, Dask) is configured by the caller."""
+    return isinstance(get_active_backend(prefer="threads")[0], ThreadingBackend)
 
 
 def _locality_order(points: np.ndarray) -> np.ndarray:
