@@ -2,7 +2,7 @@
 
 Every kernel is compiled once by numba and cached on disk (``cache=True``),
 so a fresh process loads machine code instead of compiling again. Kernels
-release the GIL (``nogil=True``); the estimators run them in joblib threads.
+release the GIL (``nogil=True``); the estimators run them in threads.
 
 Trees are flat arrays over node ids. A node's two children are consecutive
 (``right = left + 1``) and every child has a larger id than its parent, so

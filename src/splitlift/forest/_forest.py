@@ -501,10 +501,11 @@ _SHARED_PARAMETERS = """
     random_state : int, RandomState instance or None, default None
         Seeds every tree (one seed per tree, drawn up front).
     n_jobs : int, default None
-        Threads of joblib: growth, scoring and routing run in compiled code
-        that releases the GIL (window mode grows its partitions in worker
+        Threads: growth, scoring and routing run in compiled code that
+        releases the GIL (window mode grows its partitions in worker
         processes). None means 1 (unless in a joblib context), -1 all
-        cores. Results do not depend on it.
+        cores. A joblib backend configured by the caller, such as Dask's,
+        receives the batches of trees to grow. Results do not depend on it.
 """
 
 _SHARED_ATTRIBUTES = """
