@@ -198,7 +198,7 @@ class NodeStore:
         offsets = _layout(n_nodes, self.n_outputs)
         for (name, dtype, per_output), start in zip(_STORE_FIELDS, offsets[:-1], strict=True):
             shape = (n_nodes, self.n_outputs) if per_output else (n_nodes,)
-            nbytes = np.dtype(dtype).itemsize * int(np.prod(shape))
+            nbytes = _bytes_per_node(dtype, per_output, self.n_outputs) * n_nodes
             setattr(self, name, self.memory[start : start + nbytes].view(dtype).reshape(shape))
 
     def __getstate__(self) -> dict:
@@ -216,7 +216,7 @@ class NodeStore:
     def node_bytes(n_outputs: int) -> int:
         """Bytes one node takes in a store (and in the tree that views it): routing
         record, parent (int32), split time (float64), count (int32) and value."""
-        return sum(np.dtype(dtype).itemsize * (n_outputs if per_output else 1)
+        return sum(_bytes_per_node(dtype, per_output, n_outputs)
                    for _, dtype, per_output in _STORE_FIELDS)
 
     @property
@@ -256,11 +256,11 @@ class NodeStore:
                                        np.array(self.sizes, np.int64), lifetime)
         total = int(sizes.sum())
         grown, packed = _layout(self.parent.size, self.n_outputs), _layout(total, self.n_outputs)
-        for field, (name, _, _) in enumerate(_STORE_FIELDS):
+        for field, (_, dtype, per_output) in enumerate(_STORE_FIELDS):
             if packed[field] < grown[field]:  # (in 8-byte words: offsets are 64-byte aligned)
+                nbytes = _bytes_per_node(dtype, per_output, self.n_outputs) * total
                 _compiled.move_down(self.memory.view(np.uint64), grown[field] // 8,
-                                    packed[field] // 8,
-                                    -(-getattr(self, name)[:total].nbytes // 8))
+                                    packed[field] // 8, -(-nbytes // 8))
         for name, _, _ in _STORE_FIELDS:  # the block cannot shrink under views of it
             delattr(self, name)
         try:
@@ -284,9 +284,14 @@ def _layout(n_nodes: int, n_outputs: int) -> list[int]:
     size; each array starts on a 64-byte boundary."""
     offsets = [0]
     for _, dtype, per_output in _STORE_FIELDS:
-        nbytes = np.dtype(dtype).itemsize * n_nodes * (n_outputs if per_output else 1)
+        nbytes = _bytes_per_node(dtype, per_output, n_outputs) * n_nodes
         offsets.append(offsets[-1] + -(-nbytes // 64) * 64)
     return offsets
+
+
+def _bytes_per_node(dtype, per_output: bool, n_outputs: int) -> int:
+    """Bytes one node takes in a store field of ``dtype`` (a column per output or one)."""
+    return np.dtype(dtype).itemsize * (n_outputs if per_output else 1)
 
 
 def tree_from_growth(routing, parent, split_time, counts, value, lifetime: float) -> StitTree:
