@@ -154,7 +154,7 @@ def test_results_do_not_depend_on_n_jobs_for_grown_trees():
     np.testing.assert_array_equal(fits[0].apply(X_new), fits[1].apply(X_new))
 
 
-def test_growth_runs_on_plain_threads_unless_the_caller_configures_a_backend(monkeypatch):
+def test_batches_run_on_plain_threads_unless_the_caller_configures_a_backend(monkeypatch):
     # With joblib's default threads, batches run on a plain thread pool (joblib's result
     # loop polls in 10 ms sleeps); a backend the caller configures (processes here, Dask
     # in tests/test_dask.py) still receives them through joblib, with the same trees.
@@ -172,15 +172,20 @@ def test_growth_runs_on_plain_threads_unless_the_caller_configures_a_backend(mon
         return original(*args, **kwargs)
 
     monkeypatch.setattr(_forest, "Parallel", counted)
-    default = StitForestRegressor(lifetime=np.inf, n_trees=6, n_jobs=2, random_state=1)
-    default.fit(X, y)
+    # lifetime="auto" also scores its lifetimes in batches (of 8 trees: 2 batches here)
+    default, default_auto = (
+        StitForestRegressor(lifetime=lifetime, n_trees=12, n_jobs=2, random_state=1).fit(X, y)
+        for lifetime in (np.inf, "auto"))
     assert calls == []
     with joblib.parallel_config(backend="loky"):
         assert not _forest._joblib_would_use_threads()
-        configured = StitForestRegressor(lifetime=np.inf, n_trees=6, n_jobs=2, random_state=1)
-        configured.fit(X, y)
-    assert calls == ["threads"]
+        configured, configured_auto = (
+            StitForestRegressor(lifetime=lifetime, n_trees=12, n_jobs=2, random_state=1)
+            .fit(X, y) for lifetime in (np.inf, "auto"))
+    assert calls == ["threads", "threads", "threads"]  # growth; growth and scoring
     np.testing.assert_array_equal(default.apply(X), configured.apply(X))
+    np.testing.assert_array_equal(default_auto.lifetime_path_, configured_auto.lifetime_path_)
+    np.testing.assert_array_equal(default_auto.apply(X), configured_auto.apply(X))
 
 
 def test_memory_per_tree_is_below_scikit_learn_for_the_same_leaves():

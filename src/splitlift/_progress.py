@@ -3,8 +3,10 @@ thread map for short compiled kernels."""
 
 from __future__ import annotations
 
+from collections import deque
 from collections.abc import Callable, Iterable, Sequence
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
+from contextlib import nullcontext
 
 from sklearn.utils.parallel import Parallel, delayed
 
@@ -61,3 +63,48 @@ def threaded_map(function: Callable, items: Sequence, n_threads: int) -> list:
         return [function(item) for item in items]
     with ThreadPoolExecutor(n_threads) as pool:
         return list(pool.map(function, items))
+
+
+def threaded_sum(function: Callable, items: Iterable, n_threads: int):
+    """``function(items[0]) + function(items[1]) + ...``, added in this order, on up to
+    ``n_threads`` threads; ``function(item, into)`` returns a numpy array.
+
+    ``into`` is None or an array returned by an earlier call whose part of the
+    sum is taken, for the call to reuse (fresh arrays cost page faults).
+    The caller's thread adds the results in order as they finish, without
+    joblib's polling result loop; at most ``2 n_threads`` are alive at once
+    (one with a single thread).
+    """
+    items = iter(items)
+    spare: list = []  # arrays already added to the total; only this thread touches it
+    running: deque[Future] = deque()
+    pool = ThreadPoolExecutor(n_threads) if n_threads > 1 else None
+
+    def start_next() -> None:
+        item = next(items, _DONE)
+        if item is _DONE:
+            return
+        into = spare.pop() if spare else None
+        if pool is None:
+            future: Future = Future()
+            future.set_result(function(item, into))
+        else:
+            future = pool.submit(function, item, into)
+        running.append(future)
+
+    total = None
+    with pool or nullcontext():
+        for _ in range(1 if pool is None else 2 * n_threads):
+            start_next()
+        while running:
+            result = running.popleft().result()
+            if total is None:
+                total = result
+            else:
+                total += result
+                spare.append(result)
+            start_next()
+    return total
+
+
+_DONE = object()

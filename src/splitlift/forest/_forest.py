@@ -10,6 +10,7 @@ routing and the choice of the lifetime run in compiled kernels
 from __future__ import annotations
 
 import warnings
+from functools import partial
 from numbers import Integral, Real
 
 import numpy as np
@@ -23,7 +24,7 @@ from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 
 from .._blas import one_blas_thread
-from .._progress import threaded_map
+from .._progress import threaded_map, threaded_sum
 from .._validation import check_finite_matrix, check_sample_weight
 from ..lift import LiftMatrix
 from . import _compiled
@@ -252,19 +253,17 @@ class _StitForest(BaseEstimator):
             # centred, so that the difference arrays' running sums carry no large offset
             centre = np.average(part, axis=0, weights=weights)
             part = part - centre
-            batches = Parallel(n_jobs=self.n_jobs, prefer="threads", return_as="generator")(
-                delayed(_leave_one_out_batch)(trees[start : start + _TREES_PER_BATCH],
-                                              leaves[start : start + _TREES_PER_BATCH],
-                                              outputs, part, centre, weights,
-                                              weights_equal, grid)
-                for start in range(0, len(trees), _TREES_PER_BATCH)
-            )
-            total = None
-            for batch in batches:  # (in place: fresh arrays cost page faults)
-                if total is None:
-                    total = batch
-                else:
-                    total += batch
+            batch = partial(_leave_one_out_batch, trees, leaves, outputs, part, centre,
+                            weights, weights_equal, grid)
+            starts = range(0, len(trees), _TREES_PER_BATCH)
+            if _joblib_would_use_threads():  # (see _parallel)
+                total = threaded_sum(batch, starts, max(1, effective_n_jobs(self.n_jobs)))
+            else:  # a backend the caller configured
+                results = Parallel(n_jobs=self.n_jobs, prefer="threads", return_as="generator")(
+                    delayed(batch)(start) for start in starts)
+                total = next(results)
+                for result in results:
+                    total += result
             errors += _compiled.squared_errors_over_lifetimes(total, part, weights,
                                                               len(trees))
         path = errors / weights.sum()
@@ -436,11 +435,19 @@ def _grow_window_batch(normals, upper, lifetime, exponent, lifted_center, seeds)
 
 
 def _leave_one_out_batch(trees, leaves, outputs, targets, centre, weights, weights_equal,
-                         grid):
-    """Sum over ``trees`` of the leave-one-out predictions minus ``centre``, as differences
-    along the grid, shape (outputs, grid, n); ``targets`` are centred on it too."""
-    differences = np.zeros((targets.shape[1], grid.size, targets.shape[0]))
-    for tree, leaf_of_point in zip(trees, leaves, strict=True):
+                         grid, start, into=None):
+    """Sum over the ``_TREES_PER_BATCH`` trees from ``start`` of the leave-one-out
+    predictions minus ``centre``, as differences along the grid, shape (outputs, grid, n);
+    ``targets`` are centred on it too. Written into ``into`` if given (an array of that
+    shape), else into a fresh array."""
+    shape = (targets.shape[1], grid.size, targets.shape[0])
+    if into is None:
+        differences = np.zeros(shape)
+    else:
+        differences = into
+        differences.fill(0.0)
+    batch = slice(start, start + _TREES_PER_BATCH)
+    for tree, leaf_of_point in zip(trees[batch], leaves[batch], strict=True):
         value = tree.value[:, outputs] - centre
         _compiled.add_leave_one_out(tree.routing, tree.parent, tree.split_time,
                                     tree.n_node_samples, value, leaf_of_point, targets,
