@@ -253,14 +253,17 @@ class _StitForest(BaseEstimator):
             # centred, so that the difference arrays' running sums carry no large offset
             centre = np.average(part, axis=0, weights=weights)
             part = part - centre
-            batch = partial(_leave_one_out_batch, trees, leaves, outputs, part, centre,
-                            weights, weights_equal, grid)
-            starts = range(0, len(trees), _TREES_PER_BATCH)
+            shared = dict(outputs=outputs, targets=part, centre=centre, weights=weights,
+                          weights_equal=weights_equal, grid=grid)
+            batches = [(trees[start : start + _TREES_PER_BATCH],
+                        leaves[start : start + _TREES_PER_BATCH])
+                       for start in range(0, len(trees), _TREES_PER_BATCH)]
             if _joblib_would_use_threads():  # (see _parallel)
-                total = threaded_sum(batch, starts, max(1, effective_n_jobs(self.n_jobs)))
-            else:  # a backend the caller configured
+                total = threaded_sum(partial(_leave_one_out_batch, **shared), batches,
+                                     max(1, effective_n_jobs(self.n_jobs)))
+            else:  # a backend the caller configured gets each batch's trees only
                 results = Parallel(n_jobs=self.n_jobs, prefer="threads", return_as="generator")(
-                    delayed(batch)(start) for start in starts)
+                    delayed(_leave_one_out_batch)(batch, **shared) for batch in batches)
                 total = next(results)
                 for result in results:
                     total += result
@@ -434,20 +437,19 @@ def _grow_window_batch(normals, upper, lifetime, exponent, lifted_center, seeds)
     return partitions
 
 
-def _leave_one_out_batch(trees, leaves, outputs, targets, centre, weights, weights_equal,
-                         grid, start, into=None):
-    """Sum over the ``_TREES_PER_BATCH`` trees from ``start`` of the leave-one-out
-    predictions minus ``centre``, as differences along the grid, shape (outputs, grid, n);
-    ``targets`` are centred on it too. Written into ``into`` if given (an array of that
-    shape), else into a fresh array."""
+def _leave_one_out_batch(batch, into=None, *, outputs, targets, centre, weights,
+                         weights_equal, grid):
+    """Sum over a batch's trees of the leave-one-out predictions minus ``centre``, as
+    differences along the grid, shape (outputs, grid, n); ``targets`` are centred on it
+    too. ``batch`` holds the trees and their leaves of every point. Written into ``into``
+    if given (an array of that shape), else into a fresh array."""
     shape = (targets.shape[1], grid.size, targets.shape[0])
     if into is None:
         differences = np.zeros(shape)
     else:
         differences = into
         differences.fill(0.0)
-    batch = slice(start, start + _TREES_PER_BATCH)
-    for tree, leaf_of_point in zip(trees[batch], leaves[batch], strict=True):
+    for tree, leaf_of_point in zip(*batch, strict=True):
         value = tree.value[:, outputs] - centre
         _compiled.add_leave_one_out(tree.routing, tree.parent, tree.split_time,
                                     tree.n_node_samples, value, leaf_of_point, targets,
