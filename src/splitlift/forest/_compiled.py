@@ -720,7 +720,7 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     # the points in subtree order, with their targets (and weights), which the loop
     # below then reads in sequence
     cursor = start.copy()
-    members = np.empty(leaf_of_point.size, np.int64)
+    members = np.empty(leaf_of_point.size, np.uint64)  # (unsigned: no wraparound code)
     member_targets = np.empty((n_outputs, members.size))
     member_weights = np.empty(members.size if not weights_equal else 0)
     for point in range(leaf_of_point.size):
@@ -752,7 +752,11 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
         first = 0 if node == 0 else stops[parent[node]]
         child = routing[node].left
         stop = n_grid
-        if child != node:
+        if counts[node] == 2 and child != node and counts[child] == 1:
+            # two points, each alone in a child, start this node's run at first whether
+            # or not it is empty for others, and the children need no stop and no before
+            stop = first
+        elif child != node:
             stop = first
             while stop < n_grid and grid[stop] < split_time[node]:
                 stop += 1
