@@ -188,6 +188,26 @@ def test_batches_run_on_plain_threads_unless_the_caller_configures_a_backend(mon
     np.testing.assert_array_equal(default_auto.apply(X), configured_auto.apply(X))
 
 
+@pytest.mark.parametrize("n_items, n_jobs", [(100, 1), (100, 2), (7, 3), (1, 4), (0, 2)])
+def test_batches_shrink_to_single_trees_and_keep_the_order(n_items, n_jobs):
+    # guided self-scheduling (Polychronopoulos & Kuck 1987): each batch takes a
+    # 1 / (2 n_jobs) share of what is left, rounded up
+    from splitlift.forest._forest import _shrinking_batches
+
+    batches = _shrinking_batches(list(range(n_items)), n_jobs)
+    assert [item for batch in batches for item in batch] == list(range(n_items))
+    sizes = [len(batch) for batch in batches]
+    assert all(size >= 1 for size in sizes) and sizes == sorted(sizes, reverse=True)
+    left = n_items
+    for size in sizes:
+        assert size == -(-left // (2 * n_jobs))
+        left -= size
+    if n_items >= 2 * n_jobs:
+        assert sizes[-1] == 1
+    if (n_items, n_jobs) == (100, 2):
+        assert sizes == [25, 19, 14, 11, 8, 6, 5, 3, 3, 2, 1, 1, 1, 1]  # worked by hand
+
+
 def test_memory_per_tree_is_below_scikit_learn_for_the_same_leaves():
     # Reference: scikit-learn's own tree storage (node records and values) for fully grown
     # trees on the same data; both have one leaf per distinct training point.

@@ -280,8 +280,7 @@ class _StitForest(BaseEstimator):
         """
         *shared, seeds = args
         n_jobs = max(1, effective_n_jobs(self.n_jobs))
-        n_batches = min(len(seeds), 4 * n_jobs)
-        batches = [list(batch) for batch in np.array_split(np.asarray(seeds), n_batches)]
+        batches = _shrinking_batches(list(seeds), n_jobs)
         if prefer == "threads" and _joblib_would_use_threads():
             # the same threads without joblib's result loop, which polls in 10 ms sleeps
             # (a caller's other backend, such as Dask's, still gets the work)
@@ -355,6 +354,21 @@ def _lift_in_one_blas_thread(lifting: Lifting, X: np.ndarray) -> np.ndarray:
     routing or growth threads that follow need the cores (see :func:`one_blas_thread`)."""
     with one_blas_thread():
         return lifting(X)
+
+
+def _shrinking_batches(items: list, n_jobs: int) -> list[list]:
+    """``items`` in consecutive batches, each a ``1 / (2 n_jobs)`` share of those left.
+
+    Guided self-scheduling (Polychronopoulos & Kuck 1987): large batches
+    first, single items last, so no thread idles long at the end while
+    another finishes a large batch.
+    """
+    batches, start = [], 0
+    while start < len(items):
+        size = -(-(len(items) - start) // (2 * n_jobs))
+        batches.append(items[start : start + size])
+        start += size
+    return batches
 
 
 def _joblib_would_use_threads() -> bool:
