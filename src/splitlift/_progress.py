@@ -1,5 +1,5 @@
 """Parallel maps: with a progress bar (tqdm) for the batch entry points, and a plain
-thread map for short compiled kernels."""
+thread map and an ordered thread sum for short compiled kernels."""
 
 from __future__ import annotations
 

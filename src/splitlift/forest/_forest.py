@@ -528,7 +528,8 @@ _SHARED_PARAMETERS = """
         releases the GIL (window mode grows its partitions in worker
         processes). None means 1 (unless in a joblib context), -1 all
         cores. A joblib backend configured by the caller, such as Dask's,
-        receives the batches of trees to grow. Results do not depend on it.
+        receives the batches of trees to grow and to score. Results do not
+        depend on it.
 """
 
 _SHARED_ATTRIBUTES = """
