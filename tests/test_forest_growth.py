@@ -304,3 +304,38 @@ def test_trees_at_a_finite_lifetime_are_packed_without_gaps():
             assert after.parent.__array_interface__["data"][0] == end
             neighbours += 1
     assert neighbours >= 4  # 12 trees in 4 batches of 3 on one job
+
+
+@pytest.mark.parametrize("lifetime", [np.inf, 0.05])
+def test_growth_writes_the_subtree_layout_of_its_leaves(lifetime):
+    # Scoring reads each node's points as one run of positions, a left child's run first.
+    # Growth writes that layout as it goes, on the whole data and on the compact copies
+    # of small cells (64 columns: cells under 1024 points are grown from copies); it must
+    # be the layout the definition gives from the leaves (_compiled.subtree_layout).
+    from splitlift.forest import _forest
+    from splitlift.forest._tree import Forest
+
+    rng = np.random.default_rng(12)
+    rows = rng.normal(size=(6000, 64))
+    rows[5800:] = rows[:200]  # repeated rows share leaves of several points
+    columns = np.ascontiguousarray(rows.T)
+    root_box = np.concatenate([columns.min(axis=1), columns.max(axis=1)])
+    targets, weights = rng.normal(size=(6000, 1)), np.ones(6000)
+    grown = _forest._grow_data_batch(rows, columns, root_box, targets, weights, lifetime, 0,
+                                     True, [3, 4])
+    for tree, (first_position, point_order), _ in grown:
+        leaves = Forest([tree]).apply(rows)[:, 0]
+        expected_first, expected_order = _forest._layout_of(tree, leaves)
+        np.testing.assert_array_equal(first_position, expected_first)
+        assert np.array_equal(np.sort(point_order), np.arange(6000))
+        left, counts = tree.routing["left"], tree.n_node_samples
+        is_leaf = left == np.arange(tree.n_nodes)
+        assert is_leaf.sum() < 6000  # some leaves hold several points
+        for node in range(tree.n_nodes):
+            run = slice(first_position[node], first_position[node] + counts[node])
+            if is_leaf[node]:  # the points of the leaf, in any order
+                assert set(point_order[run]) == set(np.flatnonzero(leaves == node))
+                assert set(expected_order[run]) == set(np.flatnonzero(leaves == node))
+            else:
+                assert first_position[left[node]] == first_position[node]
+                assert first_position[left[node] + 1] == run.start + counts[left[node]]

@@ -82,7 +82,7 @@ def _partition(columns, direction, orders, buffer, start, end, cut):
 
 @njit(cache=True, nogil=True)
 def grow_from_data(rows, columns, root_box, lifetime, generator, exponent, routing, parent,
-                   split_time, leaf_of_point, workspace):
+                   split_time, leaf_of_point, workspace, first_position, point_order):
     """Grow one Mondrian tree whose cells use the extent of their training points.
 
     Parameters
@@ -113,6 +113,11 @@ def grow_from_data(rows, columns, root_box, lifetime, generator, exponent, routi
         Receives the leaf of every point.
     workspace : tuple of ndarray
         Working arrays from :func:`growth_workspace`, reused tree after tree.
+    first_position, point_order : ndarray of int32, shapes (at least 2 n - 1,) and (n,)
+        Receive the tree's subtree layout (as :func:`subtree_layout`) when
+        not empty: the first position of every node's points, and the point
+        at every position. Growth keeps each cell's points at consecutive
+        positions, left child first, so it writes them as it goes.
 
     Returns
     -------
@@ -149,6 +154,8 @@ def grow_from_data(rows, columns, root_box, lifetime, generator, exponent, routi
     m, n = columns.shape
     parent[0] = -1
     _make_leaf(routing, split_time, 0)
+    if first_position.size > 0:
+        first_position[0] = 0
 
     box = root_box.copy()  # box[k] is the lower and box[m + k] the upper end along k
     box_widths = np.empty(m)
@@ -160,7 +167,8 @@ def grow_from_data(rows, columns, root_box, lifetime, generator, exponent, routi
         orders[0, i] = i
     n_nodes, set_aside, n_set_aside = _grow_subtree(
         rows, columns, orders, point_ids, 0, 0.0, box, lifetime, point_store.size, exponent,
-        routing, parent, split_time, leaf_of_point, 1, generator)
+        routing, parent, split_time, leaf_of_point, 1, generator, 0, first_position,
+        point_order)
     for item in range(n_set_aside):
         start, end = int(set_aside[item, 1]), int(set_aside[item, 2])
         count = end - start
@@ -174,7 +182,7 @@ def grow_from_data(rows, columns, root_box, lifetime, generator, exponent, routi
         n_nodes = _grow_subtree(
             local_rows, local_rows.T, local_orders, points, int(set_aside[item, 0]),
             set_aside[item, 4], box, lifetime, 0, exponent, routing, parent, split_time,
-            leaf_of_point, n_nodes, generator)[0]
+            leaf_of_point, n_nodes, generator, start, first_position, point_order)[0]
     return n_nodes
 
 
@@ -388,7 +396,7 @@ _DONE, _LOG_FULL, _SET_ASIDE_FULL = 0, 1, 2
 @njit(cache=True, nogil=True)
 def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifetime,
                   set_aside_at, exponent, routing, parent, split_time, leaf_of_point,
-                  n_nodes, generator):
+                  n_nodes, generator, offset, first_position, point_order):
     """Grow the subtree of cell ``root``, which holds all of ``orders[0]``, depth first.
 
     ``rows[i]`` and ``columns[:, i]`` are the lifted values of training
@@ -396,8 +404,10 @@ def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifet
     most ``set_aside_at`` points (other than the root) are not grown but
     returned as rows ``(node, start, end, row of orders, birth)``.
     Cuts are recorded with their offsets multiplied by ``2**exponent``.
-    Random numbers come from ``generator``. Returns the new node count,
-    those rows and their number.
+    Random numbers come from ``generator``. Position ``i`` of ``orders`` is
+    position ``offset + i`` of the tree's layout (if recorded, see
+    :func:`grow_from_data`). Returns the new node count, those rows and
+    their number.
     """
     m = rows.shape[1]
     size = orders.shape[1] + 1
@@ -415,7 +425,8 @@ def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifet
         status = _grow_cells(rows, columns, orders, point_ids, root, box, lifetime,
                              set_aside_at, exponent, routing, parent, split_time,
                              leaf_of_point, stack_index, stack_value, log_position,
-                             log_value, set_aside, state, generator)
+                             log_value, set_aside, state, generator, offset, first_position,
+                             point_order)
         if status == _DONE:
             return state[2], set_aside, state[3]
         if status == _LOG_FULL:
@@ -428,7 +439,8 @@ def _grow_subtree(rows, columns, orders, point_ids, root, root_birth, box, lifet
 @njit(cache=True, nogil=True)
 def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside_at,
                 exponent, routing, parent, split_time, leaf_of_point, stack_index,
-                stack_value, log_position, log_value, set_aside, state, generator):
+                stack_value, log_position, log_value, set_aside, state, generator, offset,
+                first_position, point_order):
     """The depth-first loop of :func:`_grow_subtree`; returns a status, saves ``state``.
 
     A cell is a range of positions in one row of ``orders``; its split writes
@@ -439,6 +451,7 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
     """
     m = rows.shape[1]
     depth, log_length, n_nodes, n_set_aside = state[0], state[1], state[2], state[3]
+    recording = point_order.size > 0
     widths = np.empty(m)
     lows = np.empty(m)
     highs = np.empty(m)
@@ -546,8 +559,13 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
                 stop = end if side == 0 else start + n_left
                 parent[child] = node
                 _make_leaf(routing, split_time, child)
+                if recording:
+                    first_position[child] = offset + first
                 if stop - first == 1:  # one point: a leaf at once
-                    leaf_of_point[point_ids[orders[other, first]]] = child
+                    point = point_ids[orders[other, first]]
+                    leaf_of_point[point] = child
+                    if recording:
+                        point_order[offset + first] = point
                     continue
                 stack_index[depth, 0] = child
                 stack_index[depth, 1] = first
@@ -564,7 +582,10 @@ def _grow_cells(rows, columns, orders, point_ids, root, box, lifetime, set_aside
             break
         if not was_cut:
             for position in range(start, end):
-                leaf_of_point[point_ids[orders[buffer, position]]] = node
+                point = point_ids[orders[buffer, position]]
+                leaf_of_point[point] = node
+                if recording:
+                    point_order[offset + position] = point
     state[0], state[1], state[2], state[3] = depth, log_length, n_nodes, n_set_aside
     return status
 
@@ -668,15 +689,39 @@ def add_tree_values(rows, routing, value, total):
 
 
 @njit(cache=True, nogil=True)
-def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point, targets,
-                      weights, weights_equal, grid, total):
+def subtree_layout(routing, counts, leaf_of_point, first_position, point_order):
+    """Lay out a tree's training points so that every subtree is a run of positions.
+
+    Writes ``first_position`` (n_nodes,), the first position of each node's
+    points (a left child's run comes first), and ``point_order`` (n,), the
+    point at each position. Growth on the data writes the same layout as it
+    goes (:func:`grow_from_data`); this builds it from the leaves, for trees
+    filled after growth.
+    """
+    n_nodes = counts.size
+    start = np.zeros(n_nodes + 2, np.int64)
+    for node in range(n_nodes):  # parents first: children split the parent's run
+        child = routing[node].left
+        into = child if child != node else n_nodes  # a leaf writes past the end: no branch
+        start[into] = start[node]
+        start[into + 1] = start[node] + counts[child]
+    first_position[:] = start[:n_nodes]
+    for point in range(leaf_of_point.size):  # start becomes each leaf's next free position
+        leaf = leaf_of_point[point]
+        point_order[start[leaf]] = point
+        start[leaf] += 1
+
+
+@njit(cache=True, nogil=True)
+def add_leave_one_out(routing, parent, split_time, counts, value, first_position,
+                      point_order, targets, weights, weights_equal, grid, total):
     """Add one tree's leave-one-out predictions of its training points at every lifetime.
 
     Parameters
     ----------
     routing, parent, split_time, counts, value : node arrays of one tree
-    leaf_of_point : ndarray of int32, shape (n,)
-        Leaf of each training point in the (fully grown) tree.
+    first_position, point_order : ndarray
+        The tree's subtree layout (:func:`subtree_layout`), fully grown.
     targets : ndarray of shape (n, n_outputs)
     weights : ndarray of shape (n,)
         Positive sample weights (ones when none were given).
@@ -707,27 +752,17 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
     n_nodes = parent.size
     n_grid = grid.size
     n_outputs = targets.shape[1]
-    start = np.zeros(n_nodes + 2, np.int64)
     shared = np.empty(n_nodes, np.int64)  # the nodes of two points or more, in order
     n_shared = 0
-    for node in range(n_nodes):  # parents first: children split the parent's run
-        child = routing[node].left
-        into = child if child != node else n_nodes  # a leaf writes past the end: no branch
-        start[into] = start[node]
-        start[into + 1] = start[node] + counts[child]
+    for node in range(n_nodes):
         shared[n_shared] = node
         n_shared += counts[node] > 1
-    # the points in subtree order, with their targets (and weights), which the loop
-    # below then reads in sequence
-    cursor = start.copy()
-    members = np.empty(leaf_of_point.size, np.uint64)  # (unsigned: no wraparound code)
+    # the targets (and weights) in subtree order, which the loop below reads in sequence
+    members = point_order
     member_targets = np.empty((n_outputs, members.size))
     member_weights = np.empty(members.size if not weights_equal else 0)
-    for point in range(leaf_of_point.size):
-        leaf = leaf_of_point[point]
-        position = cursor[leaf]
-        cursor[leaf] += 1
-        members[position] = point
+    for position in range(members.size):
+        point = members[position]
         for k in range(n_outputs):
             member_targets[k, position] = targets[point, k]
     common_weight = weights[0]
@@ -736,7 +771,10 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
         totals = np.zeros(n_nodes)
         for position in range(members.size):
             member_weights[position] = weights[members[position]]
-            totals[leaf_of_point[members[position]]] += member_weights[position]
+        for node in range(n_nodes):  # a leaf's points are a run of positions
+            if routing[node].left == node:
+                for position in range(first_position[node], first_position[node] + counts[node]):
+                    totals[node] += member_weights[position]
         for node in range(n_nodes - 1, 0, -1):  # children have larger ids than their parent
             totals[parent[node]] += totals[node]
     # node serves grid[first:stop]; its first is where its parent's run stopped. Along the
@@ -775,7 +813,8 @@ def add_leave_one_out(routing, parent, split_time, counts, value, leaf_of_point,
         if previous >= 0:
             previous_total, previous_reciprocal = _cell_weight(previous, counts, totals,
                                                                weights_equal, common_weight)
-        lowest, highest = start[node], start[node] + counts[node]
+        lowest = first_position[node]
+        highest = lowest + counts[node]
         if first >= stop:  # only the points alone in a child
             lowest = lowest if alone_low else highest - 1
             highest = highest if alone_high else lowest + 1

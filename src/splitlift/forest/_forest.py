@@ -189,7 +189,7 @@ class _StitForest(BaseEstimator):
         trees = [tree for tree, _, _ in grown]
         if not tuning:
             return trees, exponent, None, None
-        chosen, path = self._tune(trees, [leaves for _, leaves, _ in grown], targets, weights,
+        chosen, path = self._tune(trees, [layout for _, layout, _ in grown], targets, weights,
                                   grid)
         if np.isinf(chosen):  # at inf every grown tree is its own pruned tree
             return trees, exponent, grid, path
@@ -232,12 +232,15 @@ class _StitForest(BaseEstimator):
             if lifted.shape[0] < 2:
                 chosen, path = grid[0], None  # one point: every cell predicts the same value
             else:
-                chosen, path = self._tune(trees, leaves, targets, weights, grid)
+                layouts = [_layout_of(tree, leaves[k]) for k, tree in enumerate(trees)]
+                chosen, path = self._tune(trees, layouts, targets, weights, grid)
             trees = prune_all(trees, chosen, effective_n_jobs(self.n_jobs))
         return trees, exponent, grid, path
 
-    def _tune(self, trees: list[StitTree], leaves: list[np.ndarray], targets, weights, grid):
+    def _tune(self, trees: list[StitTree], layouts: list[tuple], targets, weights, grid):
         """The grid lifetime with the smallest leave-one-out error, and the error path.
+
+        ``layouts`` hold each tree's subtree layout (``_compiled.subtree_layout``).
 
         Trees are summed in batches of fixed size, in order, so the path is
         the same for any ``n_jobs``.
@@ -256,7 +259,7 @@ class _StitForest(BaseEstimator):
             shared = dict(outputs=outputs, targets=part, centre=centre, weights=weights,
                           weights_equal=weights_equal, grid=grid)
             batches = [(trees[start : start + _TREES_PER_BATCH],
-                        leaves[start : start + _TREES_PER_BATCH])
+                        layouts[start : start + _TREES_PER_BATCH])
                        for start in range(0, len(trees), _TREES_PER_BATCH)]
             if _joblib_would_use_threads():  # (see _parallel)
                 total = threaded_sum(partial(_leave_one_out_batch, **shared), batches,
@@ -402,9 +405,10 @@ def _warn_if_out_of_range(lifetime: float, rescaled: float, exponent: int) -> No
 
 # ---------------------------------------------------------------- batch workers
 def _grow_data_batch(rows, columns, root_box, targets, weights, lifetime, exponent,
-                     keep_leaves, seeds):
+                     keep_layout, seeds):
     """Grown trees (offsets in lifted units, times on the rescaled clock), each with its
-    leaf of every point if ``keep_leaves`` (else None) and the store that holds it.
+    subtree layout if ``keep_layout`` (else None; see ``_compiled.subtree_layout``) and
+    the store that holds it.
 
     Trees are packed into shared stores of at most about ``_STORE_BYTES``: a
     new store opens when the free room is less than a tree could need
@@ -417,22 +421,25 @@ def _grow_data_batch(rows, columns, root_box, targets, weights, lifetime, expone
     per_store = max(1, min(len(seeds),
                            _STORE_BYTES // (capacity * NodeStore.node_bytes(n_outputs))))
     store = None
-    # one leaf array per tree when tuning needs them after growth, else one for all
-    leaves = np.empty((len(seeds) if keep_leaves else 1, n_samples), np.int32)
+    leaf_of_point = np.empty(n_samples, np.int32)
+    # the layouts that scoring reads after growth, when it does; growth writes them
+    first_positions = np.empty((len(seeds) if keep_layout else 0, capacity), np.int32)
+    point_orders = np.empty((len(seeds) if keep_layout else 0, n_samples), np.uint32)
+    not_kept = np.empty(0, np.int32), np.empty(0, np.uint32)  # (empty: growth writes none)
     workspace = _compiled.growth_workspace(*rows.shape)
     totals = np.empty(capacity)
     grown = []
     for number, seed in enumerate(seeds):
-        leaf_of_point = leaves[number if keep_leaves else 0]
         if store is None or store.free < capacity:
             store = NodeStore(capacity * per_store, n_outputs)
+        layout = (first_positions[number], point_orders[number]) if keep_layout else not_kept
         n_nodes = _compiled.grow_from_data(rows, columns, root_box, lifetime,
                                            np.random.default_rng(seed), exponent,
-                                           *store.room(), leaf_of_point, workspace)
+                                           *store.room(), leaf_of_point, workspace, *layout)
         routing, parent, split_time, counts, value = store.take(n_nodes)
         _compiled.node_values(parent, leaf_of_point, targets, weights, counts, value, totals)
         tree = tree_from_growth(routing, parent, split_time, counts, value, lifetime)
-        grown.append((tree, leaf_of_point if keep_leaves else None, store))
+        grown.append((tree, (layout[0][:n_nodes], layout[1]) if keep_layout else None, store))
     return grown
 
 
@@ -455,20 +462,29 @@ def _leave_one_out_batch(batch, into=None, *, outputs, targets, centre, weights,
                          weights_equal, grid):
     """Sum over a batch's trees of the leave-one-out predictions minus ``centre``, as
     differences along the grid, shape (outputs, grid, n); ``targets`` are centred on it
-    too. ``batch`` holds the trees and their leaves of every point. Written into ``into``
-    if given (an array of that shape), else into a fresh array."""
+    too. ``batch`` holds the trees and their subtree layouts. Written into ``into`` if
+    given (an array of that shape), else into a fresh array."""
     shape = (targets.shape[1], grid.size, targets.shape[0])
     if into is None:
         differences = np.zeros(shape)
     else:
         differences = into
         differences.fill(0.0)
-    for tree, leaf_of_point in zip(*batch, strict=True):
+    for tree, layout in zip(*batch, strict=True):
         value = tree.value[:, outputs] - centre
         _compiled.add_leave_one_out(tree.routing, tree.parent, tree.split_time,
-                                    tree.n_node_samples, value, leaf_of_point, targets,
-                                    weights, weights_equal, grid, differences)
+                                    tree.n_node_samples, value, *layout, targets, weights,
+                                    weights_equal, grid, differences)
     return differences
+
+
+def _layout_of(tree: StitTree, leaf_of_point: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """A filled tree's subtree layout, built from the leaf of every training point."""
+    first_position = np.empty(tree.n_nodes, np.int32)
+    point_order = np.empty(leaf_of_point.size, np.uint32)
+    _compiled.subtree_layout(tree.routing, tree.n_node_samples, leaf_of_point, first_position,
+                             point_order)
+    return first_position, point_order
 
 
 def _filled(tree: StitTree, leaf_of_point: np.ndarray, targets: np.ndarray,
