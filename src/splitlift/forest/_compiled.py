@@ -113,7 +113,7 @@ def grow_from_data(rows, columns, root_box, lifetime, generator, exponent, routi
         Receives the leaf of every point.
     workspace : tuple of ndarray
         Working arrays from :func:`growth_workspace`, reused tree after tree.
-    first_position, point_order : ndarray of int32, shapes (at least 2 n - 1,) and (n,)
+    first_position, point_order : ndarray of int32 (at least 2 n - 1,), of uint32 (n,)
         Receive the tree's subtree layout (as :func:`subtree_layout`) when
         not empty: the first position of every node's points, and the point
         at every position. Growth keeps each cell's points at consecutive

@@ -424,6 +424,7 @@ def _grow_data_batch(rows, columns, root_box, targets, weights, lifetime, expone
     leaf_of_point = np.empty(n_samples, np.int32)
     # the layouts that scoring reads after growth, when it does; growth writes them
     first_positions = np.empty((len(seeds) if keep_layout else 0, capacity), np.int32)
+    # (unsigned point ids: the scoring loop indexes with them without wraparound code)
     point_orders = np.empty((len(seeds) if keep_layout else 0, n_samples), np.uint32)
     not_kept = np.empty(0, np.int32), np.empty(0, np.uint32)  # (empty: growth writes none)
     workspace = _compiled.growth_workspace(*rows.shape)
