@@ -154,7 +154,7 @@ def grow_from_data(rows, columns, root_box, lifetime, generator, exponent, routi
     m, n = columns.shape
     parent[0] = -1
     _make_leaf(routing, split_time, 0)
-    if first_position.size > 0:
+    if point_order.size > 0:  # (as _grow_cells decides whether to record the layout)
         first_position[0] = 0
 
     box = root_box.copy()  # box[k] is the lower and box[m + k] the upper end along k
